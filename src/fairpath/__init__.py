@@ -1,0 +1,20 @@
+"""fairpath: Monte Carlo fair values, with error bars, for options and structured notes.
+
+>>> import fairpath as fp
+>>> market = fp.load_market("markets/demo.toml")            # doctest: +SKIP
+>>> call = fp.load_product("payoffs/european_call.toml")     # doctest: +SKIP
+>>> fp.price(call, market, paths=65536, sampler="sobol", seed=7)   # doctest: +SKIP
+"""
+
+from fairpath.errors import FairpathError, FairpathWarning, InputError, SamplingWarning
+from fairpath.estimate import CAUTION, PriceResult, price
+from fairpath.market import Asset, Correlation, DiscountCurve, Market, VolCurve, load_market
+from fairpath.products import REGISTRY, Digital, European, Product, load_product
+
+__version__ = "0.1.0"
+
+__all__ = [
+    "CAUTION", "REGISTRY", "Asset", "Correlation", "Digital", "DiscountCurve", "European",
+    "FairpathError", "FairpathWarning", "InputError", "Market", "PriceResult", "Product",
+    "SamplingWarning", "VolCurve", "load_market", "load_product", "price",
+]

@@ -1,0 +1,210 @@
+"""Command line: ``fairpath price | validate | demo``.
+
+Exit status: 0 on success, 2 on bad input (one line on stderr naming the file, the key and the
+problem), 1 on an internal error.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import sys
+import warnings
+from importlib import resources
+from pathlib import Path
+
+from fairpath import estimate
+from fairpath.errors import FairpathError, InputError
+from fairpath.market import load_market
+from fairpath.products.loader import load_product
+from fairpath.sampling import DEFAULT_REPLICATES
+
+
+class _Parser(argparse.ArgumentParser):
+    def error(self, message):  # one line, exit 2
+        self.exit(2, f"{self.prog}: error: {message}\n")
+
+
+def _positive_int(text: str) -> int:
+    try:
+        v = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a positive integer, got {text!r}") from None
+    if v < 1:
+        raise argparse.ArgumentTypeError(f"expected a positive integer, got {text!r}")
+    return v
+
+
+def _positive_float(text: str) -> float:
+    try:
+        v = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a positive number, got {text!r}") from None
+    if not v > 0 or v == float("inf"):
+        raise argparse.ArgumentTypeError(f"expected a positive number, got {text!r}")
+    return v
+
+
+def _seed(text: str) -> int:
+    try:
+        v = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a non-negative integer, got {text!r}") \
+            from None
+    if v < 0:
+        raise argparse.ArgumentTypeError(f"expected a non-negative integer, got {text!r}")
+    return v
+
+
+def _add_mc_options(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--paths", type=_positive_int, default=estimate.DEFAULT_PATHS,
+                   help="number of paths (default %(default)s)")
+    p.add_argument("--sampler", choices=("sobol", "pseudo"), default="sobol",
+                   help="scrambled Sobol (randomized QMC) or PCG64 pseudo-random")
+    p.add_argument("--seed", type=_seed, default=None, help="seed (a fixed default otherwise)")
+    p.add_argument("--replicates", type=_positive_int, default=DEFAULT_REPLICATES,
+                   help="independent Sobol scramblings for the standard error "
+                        "(default %(default)s)")
+
+
+def build_parser() -> argparse.ArgumentParser:
+    ap = _Parser(prog="fairpath", description="Monte Carlo fair values with error bars for "
+                 "options and structured notes.", epilog=estimate.CAUTION)
+    sub = ap.add_subparsers(dest="command", required=True, parser_class=_Parser)
+
+    p = sub.add_parser("price", help="price one product file on a market file")
+    p.add_argument("product", help="product TOML file")
+    p.add_argument("--market", required=True, help="market TOML file")
+    _add_mc_options(p)
+    p.add_argument("--antithetic", action="store_true", help="pair each draw with its mirror")
+    p.add_argument("--no-control", action="store_true", help="switch off control variates")
+    p.add_argument("--target-stderr", type=_positive_float, default=None,
+                   help="double the paths until the standard error is at or below this")
+    p.add_argument("--max-paths", type=_positive_int, default=estimate.DEFAULT_MAX_PATHS,
+                   help="cap for --target-stderr (default %(default)s)")
+    p.add_argument("--json", action="store_true", help="print one JSON object")
+
+    v = sub.add_parser("validate", help="Monte Carlo against the closed forms, with z-scores")
+    v.add_argument("--json", action="store_true")
+
+    d = sub.add_parser("demo", help="price the example payoffs on the demo market")
+    d.add_argument("--payoffs", default=None, help="folder of product files")
+    d.add_argument("--market", default=None, help="market file")
+    _add_mc_options(d)
+    d.add_argument("--json", action="store_true")
+    return ap
+
+
+def _warning_line(message, category, filename, lineno, file=None, line=None):
+    print(f"fairpath: warning: {message}", file=sys.stderr)
+
+
+def main(argv: list[str] | None = None) -> int:
+    args = build_parser().parse_args(argv)
+    warnings.showwarning = _warning_line
+    try:
+        if args.command == "price":
+            return _price(args)
+        if args.command == "validate":
+            return _validate(args)
+        if args.command == "demo":
+            return _demo(args)
+    except InputError as exc:
+        print(f"fairpath: error: {exc}", file=sys.stderr)
+        return 2
+    except FairpathError as exc:
+        print(f"fairpath: internal error: {exc}", file=sys.stderr)
+        return 1
+    except KeyboardInterrupt:
+        print("fairpath: interrupted", file=sys.stderr)
+        return 130
+    return 1  # pragma: no cover
+
+
+def _price(args) -> int:
+    market = load_market(args.market)
+    product = load_product(args.product)
+    res = estimate.price(product, market, paths=args.paths, sampler=args.sampler,
+                         seed=args.seed, antithetic=args.antithetic,
+                         control=not args.no_control, target_stderr=args.target_stderr,
+                         max_paths=args.max_paths, replicates=args.replicates,
+                         source=args.product)
+    if args.json:
+        print(res.to_json())
+    else:
+        print(res)
+        print(f"\n{estimate.CAUTION}")
+    return 0
+
+
+def _validate(args) -> int:
+    from fairpath import validate
+
+    results = validate.run()
+    if args.json:
+        print(json.dumps([r.to_dict() for r in results]))
+    else:
+        print(validate.table(results))
+    return 0 if all(r.ok for r in results) else 1
+
+
+def demo_paths() -> tuple[Path, Path]:
+    """The example payoffs folder and the demo market: the checkout's, else the installed copy."""
+    root = Path(__file__).resolve().parents[2]
+    if (root / "payoffs").is_dir() and (root / "markets" / "demo.toml").is_file():
+        return root / "payoffs", root / "markets" / "demo.toml"
+    data = Path(str(resources.files("fairpath") / "_demo"))
+    return data / "payoffs", data / "markets" / "demo.toml"
+
+
+def _demo(args) -> int:
+    payoffs, market_file = demo_paths()
+    if args.payoffs:
+        payoffs = Path(args.payoffs)
+    if args.market:
+        market_file = Path(args.market)
+    if not payoffs.is_dir():
+        raise InputError("not a folder of product files", source=str(payoffs))
+    market = load_market(market_file)
+    files = sorted(payoffs.glob("*.toml"))
+    if not files:
+        raise InputError("no product files (*.toml) in this folder", source=str(payoffs))
+    rows = []
+    for f in files:
+        row = {"file": f.name}
+        try:
+            product = load_product(f)
+            res = estimate.price(product, market, paths=args.paths, sampler=args.sampler,
+                                 seed=args.seed, replicates=args.replicates, source=str(f))
+            ref = product.closed_form(market)
+            row.update(name=product.label(), kind=product.kind, price=res.price,
+                       stderr=res.stderr, ci95=list(res.ci95), closed_form=ref,
+                       seconds=res.seconds, status="ok")
+        except InputError as exc:
+            row.update(status="error", message=str(exc))
+        rows.append(row)
+    if args.json:
+        print(json.dumps({"market": str(market_file), "currency": market.currency,
+                          "valuation_date": market.valuation_date.isoformat(),
+                          "results": rows}))
+        return 0 if all(r["status"] == "ok" for r in rows) else 2
+    print(f"Demo market {market_file.name}: valuation {market.valuation_date}, "
+          f"{market.currency}; {args.paths:,} {args.sampler} paths per product\n")
+    head = (f"{'product':<30} {'kind':<10} {'price':>12} {'stderr':>10} "
+            f"{'95% interval':>25} {'closed form':>12} {'sec':>6}")
+    print(head)
+    print("-" * len(head))
+    for r in rows:
+        if r["status"] != "ok":
+            print(f"{r['file']:<30} error: {r['message']}")
+            continue
+        cf = "" if r["closed_form"] is None else f"{r['closed_form']:.4f}"
+        ci = f"[{r['ci95'][0]:.4f}, {r['ci95'][1]:.4f}]"
+        print(f"{r['name'][:30]:<30} {r['kind']:<10} {r['price']:>12.4f} {r['stderr']:>10.4f} "
+              f"{ci:>25} {cf:>12} {r['seconds']:>6.2f}")
+    print(f"\n{estimate.CAUTION}")
+    return 0 if all(r["status"] == "ok" for r in rows) else 2
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())

@@ -1,0 +1,412 @@
+"""The Monte Carlo driver: grid, chunks, accumulation, control variates, the result.
+
+Accumulation is per *block* (see :mod:`fairpath.sampling`): each block keeps its sample count,
+mean vector and centred cross-product matrix of ``[payoff, control_1, ..., control_m]``; blocks
+are merged in a fixed order (Chan et al.'s pairwise update), so the result does not depend on how
+many blocks were simulated together.
+
+Standard errors:
+
+* pseudo-random: the sample standard deviation of the (controlled) per-path values over
+  ``sqrt(N)``; the 95% interval uses the normal quantile;
+* Sobol (randomized QMC): the spread of the ``R`` independent scramblings' estimates,
+  ``std / sqrt(R)``; the 95% interval uses Student's t with ``R - 1`` degrees of freedom;
+* antithetic pairs count as one sample (the mean of the pair).
+
+Control variates: the coefficient ``b`` is the least-squares slope of the payoff on the controls
+from the same run (pooled over all samples); the controlled estimate is
+``mean(Y) - b . (mean(X) - E[X])``. The variance reduction factor is the ratio of the uncontrolled
+to the controlled variance; a control that does not reduce the variance is switched off and the
+result says so.
+"""
+
+from __future__ import annotations
+
+import html
+import json
+import math
+import time
+from dataclasses import dataclass, field
+
+import numpy as np
+from scipy import stats
+
+from fairpath.errors import FairpathError, InputError
+from fairpath.market import Market
+from fairpath.models import GBM, simulate_log_levels
+from fairpath.products.base import ControlVariate, PathSet, Product
+from fairpath.sampling import DEFAULT_REPLICATES, Block, Sampler, make_sampler
+
+#: Bytes of simulated state per chunk (normals, log levels); keeps memory flat in the path count.
+CHUNK_BYTES = 32 * 1024 * 1024
+#: Default and maximum path counts.
+DEFAULT_PATHS = 65536
+DEFAULT_MAX_PATHS = 1 << 22
+
+CAUTION = ("Model estimate under the stated assumptions (risk-neutral GBM on the given market "
+           "inputs); not advice, and not a substitute for an institution's approved valuation "
+           "models and controls.")
+
+
+# ---------------------------------------------------------------------------------------------
+# The result
+# ---------------------------------------------------------------------------------------------
+@dataclass(frozen=True, slots=True)
+class PriceResult:
+    """A Monte Carlo price with its error bar and the settings that produced it."""
+
+    price: float
+    stderr: float
+    ci95: tuple[float, float]
+    paths: int
+    currency: str
+    sampler: str
+    seed: int
+    seconds: float
+    product: str = ""
+    antithetic: bool = False
+    replicates: int | None = None
+    controls: tuple[str, ...] = ()
+    variance_reduction: float | None = None
+    notes: tuple[str, ...] = ()
+    extras: dict = field(default_factory=dict, compare=False)
+
+    def to_dict(self) -> dict:
+        """The JSON contract of ``fairpath price --json`` (contract keys first)."""
+        d = {"price": self.price, "stderr": self.stderr, "ci95": list(self.ci95),
+             "paths": self.paths, "currency": self.currency, "sampler": self.sampler,
+             "seed": self.seed, "seconds": round(self.seconds, 6)}
+        d.update({"product": self.product, "antithetic": self.antithetic,
+                  "replicates": self.replicates, "controls": list(self.controls),
+                  "variance_reduction": self.variance_reduction, "notes": list(self.notes)})
+        return d
+
+    def to_json(self) -> str:
+        return json.dumps(self.to_dict())
+
+    def _rows(self) -> list[tuple[str, str]]:
+        lo, hi = self.ci95
+        rows = [("price", f"{self.price:.6f} {self.currency}"),
+                ("standard error", f"{self.stderr:.6f}"),
+                ("95% interval", f"[{lo:.6f}, {hi:.6f}]"),
+                ("paths", f"{self.paths:,}"),
+                ("sampler", self.sampler + (f" ({self.replicates} scramblings)"
+                                            if self.replicates else "")
+                 + (", antithetic" if self.antithetic else "")),
+                ("seed", str(self.seed)),
+                ("controls", ", ".join(self.controls) or "none")]
+        if self.variance_reduction is not None:
+            rows.append(("variance reduction", f"x{self.variance_reduction:.3g}"))
+        rows.append(("seconds", f"{self.seconds:.3f}"))
+        rows.extend(("note", n) for n in self.notes)
+        return rows
+
+    def __str__(self) -> str:
+        w = max(len(k) for k, _ in self._rows())
+        head = f"{self.product}\n" if self.product else ""
+        return head + "\n".join(f"  {k:<{w}}  {v}" for k, v in self._rows())
+
+    def _repr_html_(self) -> str:
+        body = "".join(f"<tr><th style='text-align:left'>{html.escape(k)}</th>"
+                       f"<td style='text-align:left'>{html.escape(v)}</td></tr>"
+                       for k, v in self._rows())
+        title = f"<caption>{html.escape(self.product)}</caption>" if self.product else ""
+        return f"<table>{title}{body}</table><p><small>{html.escape(CAUTION)}</small></p>"
+
+
+# ---------------------------------------------------------------------------------------------
+# Per-block statistics
+# ---------------------------------------------------------------------------------------------
+@dataclass(frozen=True, slots=True)
+class Moments:
+    """Count, mean vector and centred cross-products of a set of samples."""
+
+    n: int
+    mean: np.ndarray
+    m2: np.ndarray
+
+    @classmethod
+    def of(cls, v: np.ndarray) -> Moments:
+        n = v.shape[0]
+        mean = v.sum(axis=0) / n
+        d = v - mean
+        k = v.shape[1]
+        m2 = np.empty((k, k))
+        for i in range(k):  # explicit pairwise sums: the same arithmetic for any chunking
+            for j in range(i, k):
+                m2[i, j] = m2[j, i] = (d[:, i] * d[:, j]).sum()
+        return cls(n, mean, m2)
+
+    def merge(self, other: Moments) -> Moments:
+        n = self.n + other.n
+        delta = other.mean - self.mean
+        mean = self.mean + delta * (other.n / n)
+        m2 = self.m2 + other.m2 + np.outer(delta, delta) * (self.n * other.n / n)
+        return Moments(n, mean, m2)
+
+    def cov(self) -> np.ndarray:
+        return self.m2 / max(self.n - 1, 1)
+
+
+def merge_all(parts: list[Moments]) -> Moments:
+    out = parts[0]
+    for p in parts[1:]:
+        out = out.merge(p)
+    return out
+
+
+# ---------------------------------------------------------------------------------------------
+# Simulation of one product
+# ---------------------------------------------------------------------------------------------
+class Simulation:
+    """Everything fixed for one product on one market: grid, step parameters, controls."""
+
+    def __init__(self, product: Product, market: Market, sampler: Sampler,
+                 controls: list[ControlVariate], source: str | None = None):
+        product.check(market, source)
+        self.product = product
+        self.market = market
+        self.sampler = sampler
+        self.controls = controls
+        self.names = product.underlyings()
+        self.model = GBM.from_market(market, self.names, source=source)
+        self.dates = tuple(product.observation_dates())
+        t_obs = np.atleast_1d(market.time(self.dates)).astype(float)
+        future = [d for d, t in zip(self.dates, t_obs, strict=True) if t > 0]
+        self.grid_dates = tuple(sorted(set(future)))
+        self.grid_times = np.atleast_1d(market.time(self.grid_dates)).astype(float) \
+            if self.grid_dates else np.zeros(0)
+        # column of each observation date in the grid; -1 = on the valuation date (spot)
+        pos = {d: i for i, d in enumerate(self.grid_dates)}
+        self.obs_index = np.array([pos.get(d, -1) for d in self.dates], dtype=int)
+        self.params = self.model.steps(self.grid_times) if self.grid_dates else None
+        self.spots = self.model.spots
+
+    @property
+    def steps(self) -> int:
+        return len(self.grid_dates)
+
+    def pathset(self, log_levels: np.ndarray) -> PathSet:
+        n = log_levels.shape[0]
+        grid_levels = np.exp(log_levels, out=log_levels)
+        levels = np.empty((n, len(self.names), len(self.dates)))
+        for k, g in enumerate(self.obs_index):
+            if g < 0:
+                levels[:, :, k] = self.spots
+            else:
+                levels[:, :, k] = grid_levels[:, :, g]
+        var = self.params.variance if self.params is not None else np.zeros((len(self.names), 0))
+        return PathSet(self.market, self.names, self.dates, levels, self.grid_times,
+                       grid_levels, var)
+
+    def sample_values(self, ps: PathSet) -> np.ndarray:
+        """(paths, 1 + controls): discounted payoff, then each control's value."""
+        cols = [np.asarray(self.product.payoff(ps), dtype=float)]
+        cols.extend(np.asarray(c.values(ps), dtype=float) for c in self.controls)
+        v = np.stack([np.broadcast_to(c, (ps.n,)) for c in cols], axis=1)
+        if not np.all(np.isfinite(v)):
+            bad = "payoff" if not np.all(np.isfinite(v[:, 0])) else "a control variate"
+            raise FairpathError(f"non-finite values in the {bad} of {self.product.label()} "
+                                "(check the product's terms and the market inputs)")
+        return v
+
+    def run_blocks(self, blocks: list[Block], chunk_paths: int | None = None
+                   ) -> dict[Block, Moments]:
+        """Simulate ``blocks`` in chunks; return each block's moments."""
+        n_a = len(self.names)
+        per_path = max(1, n_a * max(self.steps, 1) * 8 * 3)
+        if chunk_paths is None:
+            chunk_paths = max(1, CHUNK_BYTES // per_path)
+        out: dict[Block, Moments] = {}
+        i = 0
+        while i < len(blocks):
+            chunk = [blocks[i]]
+            total = blocks[i].size
+            i += 1
+            while i < len(blocks) and total + blocks[i].size <= chunk_paths:
+                chunk.append(blocks[i])
+                total += blocks[i].size
+                i += 1
+            z = self.sampler.normals(chunk, n_a, self.grid_times)
+            x = simulate_log_levels(self.params, self.spots, z)
+            v = self.sample_values(self.pathset(x))
+            off = 0
+            for b in chunk:
+                vb = v[off:off + b.size]
+                off += b.size
+                if self.sampler.antithetic:
+                    h = b.size // 2
+                    vb = 0.5 * (vb[:h] + vb[h:])
+                out[b] = Moments.of(vb)
+        return out
+
+    def deterministic_value(self) -> np.ndarray:
+        """Payoff and controls when every date is on the valuation date (no randomness)."""
+        x = np.zeros((1, len(self.names), 0))
+        return self.sample_values(self.pathset(x))[0]
+
+
+@dataclass(frozen=True, slots=True)
+class Estimate:
+    price: float
+    stderr: float
+    ci95: tuple[float, float]
+    samples: int
+    controls: tuple[str, ...]
+    variance_reduction: float | None
+    notes: tuple[str, ...]
+
+
+def combine(moments: dict[Block, Moments], blocks: list[Block], controls: list[ControlVariate],
+            sampler: Sampler) -> Estimate:
+    """Price, standard error and interval from the blocks' moments (see the module notes)."""
+    parts = [moments[b] for b in blocks]
+    pooled = merge_all(parts)
+    m = len(controls)
+    notes: list[str] = []
+    mu = np.array([c.mean for c in controls])
+    cov = pooled.cov()
+    b = np.zeros(0)
+    use = []
+    if m:
+        # drop controls that do not vary (e.g. a date on the valuation date)
+        var_x = np.diag(cov)[1:]
+        scale = 1.0 + np.abs(pooled.mean[1:]) ** 2
+        use = [i for i in range(m) if var_x[i] > 1e-13 * scale[i]]
+        if use:
+            idx = np.array(use) + 1
+            cxx = cov[np.ix_(idx, idx)]
+            cxy = cov[idx, 0]
+            b = np.linalg.lstsq(cxx, cxy, rcond=None)[0]
+    idx = np.array(use, dtype=int) + 1
+
+    def controlled(mean_vec: np.ndarray) -> float:
+        if not len(use):
+            return float(mean_vec[0])
+        return float(mean_vec[0] - b @ (mean_vec[idx] - mu[np.array(use)]))
+
+    replicated = sampler.replicates is not None
+    if replicated:
+        reps: dict[int, list[Moments]] = {}
+        for blk in blocks:
+            reps.setdefault(blk.replicate, []).append(moments[blk])
+        rep_means = [merge_all(v).mean for _, v in sorted(reps.items())]
+        r = len(rep_means)
+        raw = np.array([mv[0] for mv in rep_means])
+        var_raw = float(np.var(raw, ddof=1)) / r
+        ctl = np.array([controlled(mv) for mv in rep_means])
+        var_ctl = float(np.var(ctl, ddof=1)) / r
+        quant = float(stats.t.ppf(0.975, r - 1))
+        price_raw, price_ctl = float(raw.mean()), float(ctl.mean())
+    else:
+        n = pooled.n
+        var_raw = float(cov[0, 0]) / n
+        if len(use):
+            cyx = cov[idx, 0]
+            var_ctl = max(float(cov[0, 0] - cyx @ b), 0.0) / n
+        else:
+            var_ctl = var_raw
+        quant = float(stats.norm.ppf(0.975))
+        price_raw, price_ctl = float(pooled.mean[0]), controlled(pooled.mean)
+
+    vrf = None
+    names: tuple[str, ...] = ()
+    if len(use):
+        if var_ctl < var_raw:
+            vrf = var_raw / var_ctl if var_ctl > 0 else math.inf
+            price, var = price_ctl, var_ctl
+            names = tuple(controls[i].name for i in use)
+        else:
+            notes.append("control variate switched off: it did not reduce the variance")
+            price, var = price_raw, var_raw
+    else:
+        price, var = price_raw, var_raw
+    se = math.sqrt(max(var, 0.0))
+    return Estimate(price, se, (price - quant * se, price + quant * se), pooled.n, names,
+                    vrf if vrf is None or math.isfinite(vrf) else None, tuple(notes))
+
+
+# ---------------------------------------------------------------------------------------------
+# Public entry point
+# ---------------------------------------------------------------------------------------------
+def price(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
+          sampler: str = "sobol", seed: int | None = None, antithetic: bool = False,
+          control: bool = True, target_stderr: float | None = None,
+          max_paths: int = DEFAULT_MAX_PATHS, replicates: int = DEFAULT_REPLICATES,
+          chunk_paths: int | None = None, source: str | None = None) -> PriceResult:
+    """Monte Carlo price of ``product`` on ``market``.
+
+    Parameters
+    ----------
+    paths : int
+        Number of simulated paths (antithetic mirrors included). For Sobol, a multiple of
+        ``replicates`` whose quotient is a power of two keeps the sequence balanced.
+    sampler : {"sobol", "pseudo"}
+        Scrambled Sobol (randomized QMC) or PCG64 pseudo-random uniforms.
+    seed : int, optional
+        Seed of every random stream; a fixed default makes results reproducible.
+    antithetic : bool
+        Pair every draw with its mirror image.
+    control : bool
+        Use the product's control variates (kept only if they reduce the variance).
+    target_stderr : float, optional
+        Double the path count until the standard error is at or below this, up to
+        ``max_paths``.
+    chunk_paths : int, optional
+        Paths simulated at once (memory); never changes the result.
+
+    Examples
+    --------
+    >>> import fairpath as fp
+    >>>     >>> m = fp.Market(date(2026, 12, 1), "EUR", fp.DiscountCurve.flat(0.05),
+    ...               (fp.Asset("NORDA", 100.0, fp.VolCurve.flat(0.2)),))
+    >>> call = fp.European(asset="NORDA", right="call", strike=100.0, expiry=date(2027, 12, 1))
+    >>> r = fp.price(call, m, paths=4096, seed=1)
+    >>> abs(r.price - 10.4506) < 4 * r.stderr
+    True
+    """
+    t_start = time.perf_counter()
+    smp = make_sampler(sampler, seed=seed, antithetic=antithetic, replicates=replicates)
+    if target_stderr is not None and not (math.isfinite(target_stderr) and target_stderr > 0):
+        raise InputError(f"must be a positive number, got {target_stderr}", key="target_stderr")
+    if target_stderr is not None and (isinstance(max_paths, bool) or not isinstance(
+            max_paths, int) or max_paths < paths):
+        raise InputError(f"must be an integer at least the path count, got {max_paths!r}",
+                         key="max_paths")
+    controls = product.controls(market) if control else []
+    sim = Simulation(product, market, smp, controls, source)
+    notes: list[str] = []
+    currency = market.currency
+
+    if sim.steps == 0:
+        v = sim.deterministic_value()
+        val = float(v[0])
+        notes.append("every date is on the valuation date: intrinsic value, no simulation")
+        return PriceResult(val, 0.0, (val, val), 0, currency, smp.name, smp.seed,
+                           time.perf_counter() - t_start, product.label(), smp.antithetic,
+                           smp.replicates, (), None, tuple(notes))
+
+    cache: dict[Block, Moments] = {}
+    n = paths
+    while True:
+        blocks = smp.plan(n)
+        todo = [b for b in blocks if b not in cache]
+        if todo:
+            cache.update(sim.run_blocks(todo, chunk_paths))
+        est = combine(cache, blocks, controls, smp)
+        if target_stderr is None or est.stderr <= target_stderr:
+            break
+        if n * 2 > max_paths:
+            notes.append(f"target standard error {target_stderr:g} not reached at the cap of "
+                         f"{max_paths:,} paths")
+            break
+        n *= 2
+    notes.extend(est.notes)
+    if est.variance_reduction is not None:
+        notes.append(f"control variate ({'; '.join(est.controls)}): variance reduced "
+                     f"x{est.variance_reduction:.3g}")
+    return PriceResult(est.price, est.stderr, est.ci95, n, currency, smp.name, smp.seed,
+                       time.perf_counter() - t_start, product.label(), smp.antithetic,
+                       smp.replicates, est.controls, est.variance_reduction, tuple(notes),
+                       {"dates": [d.isoformat() for d in sim.grid_dates]})
+

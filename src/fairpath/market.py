@@ -1,0 +1,376 @@
+"""Market inputs: valuation date, discount curve, assets, correlation. Frozen and validated.
+
+A market is built from a TOML file by :func:`load_market` (format in the README) or in code::
+
+    >>> from datetime import date
+    >>> m = Market(valuation_date=date(2026, 12, 1), currency="EUR",
+    ...            discount=DiscountCurve.flat(0.03),
+    ...            assets=(Asset("NORDA", spot=100.0, vol=VolCurve.flat(0.25),
+    ...                          dividend_yield=0.02),))
+    >>> round(m.forward("NORDA", 1.0), 4)
+    101.005
+"""
+
+from __future__ import annotations
+
+import dataclasses
+from dataclasses import dataclass, field
+from datetime import date
+from pathlib import Path
+
+import numpy as np
+
+from fairpath.dates import DAY_COUNTS, parse_tenor, year_fraction
+from fairpath.errors import InputError
+from fairpath.inputs import Table, did_you_mean, read_toml
+
+#: Tolerance on the smallest eigenvalue of a correlation matrix (rounding in hand-typed files).
+PSD_TOLERANCE = 1e-10
+
+
+# ---------------------------------------------------------------------------------------------
+# Discount curve
+# ---------------------------------------------------------------------------------------------
+@dataclass(frozen=True, slots=True)
+class DiscountCurve:
+    """Continuously compounded zero curve.
+
+    Flat (one pillar) or pillars ``times`` / ``zero_rates``: linear in ``t * r(t)`` between
+    pillars (piecewise-flat instantaneous forward rates), the zero rate flat outside.
+    """
+
+    times: tuple[float, ...]
+    zero_rates: tuple[float, ...]
+
+    @classmethod
+    def flat(cls, rate: float) -> DiscountCurve:
+        return cls((1.0,), (float(rate),))
+
+    @property
+    def is_flat(self) -> bool:
+        return len(self.zero_rates) == 1
+
+    def zero(self, t):
+        """Zero rate r(t) at times ``t`` (years)."""
+        t = np.asarray(t, dtype=float)
+        if self.is_flat:
+            return np.full_like(t, self.zero_rates[0])
+        ts = np.asarray(self.times)
+        rs = np.asarray(self.zero_rates)
+        rt = np.interp(t, ts, ts * rs)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            inner = np.where(t > 0, rt / np.where(t > 0, t, 1.0), rs[0])
+        return np.where(t <= ts[0], rs[0], np.where(t >= ts[-1], rs[-1], inner))
+
+    def df(self, t):
+        """Discount factor exp(-r(t) t)."""
+        t = np.asarray(t, dtype=float)
+        return np.exp(-self.zero(t) * t)
+
+    def shifted(self, dr: float) -> DiscountCurve:
+        """Parallel shift of every zero rate (used for rho)."""
+        return DiscountCurve(self.times, tuple(r + dr for r in self.zero_rates))
+
+
+# ---------------------------------------------------------------------------------------------
+# Volatility term structure
+# ---------------------------------------------------------------------------------------------
+@dataclass(frozen=True, slots=True)
+class VolCurve:
+    """Black volatility by expiry, piecewise-flat forward variance between pillars.
+
+    Total variance ``w(t_i) = vol_i**2 * t_i`` at the pillars; the forward variance is constant
+    between pillars, equal to ``vol_0**2`` before the first and to the last piece's after the
+    last pillar.
+    """
+
+    times: tuple[float, ...]
+    vols: tuple[float, ...]
+
+    @classmethod
+    def flat(cls, vol: float) -> VolCurve:
+        return cls((1.0,), (float(vol),))
+
+    @property
+    def is_flat(self) -> bool:
+        return len(self.vols) == 1
+
+    def pieces(self) -> tuple[np.ndarray, np.ndarray]:
+        """Breakpoints (starting at 0, last one +inf) and the forward vol on each piece."""
+        ts = np.asarray(self.times, dtype=float)
+        vs = np.asarray(self.vols, dtype=float)
+        if self.is_flat:
+            return np.array([0.0, np.inf]), vs.copy()
+        w = vs**2 * ts
+        fwd_var = np.empty(len(ts) + 1)
+        fwd_var[0] = vs[0] ** 2
+        fwd_var[1:-1] = np.diff(w) / np.diff(ts)
+        fwd_var[-1] = fwd_var[-2]
+        edges = np.concatenate([[0.0], ts, [np.inf]])
+        # pieces: [0, t0), [t0, t1), ..., [t_{n-1}, inf); the first two share vol_0
+        fwd = np.concatenate([[fwd_var[0]], fwd_var[1:-1], [fwd_var[-1]]])
+        return edges, np.sqrt(np.maximum(fwd, 0.0))
+
+    def variance(self, t0, t1):
+        """Integrated variance between ``t0`` and ``t1`` (vectorised)."""
+        return integrate_vol_product(self, self, t0, t1)
+
+    def implied(self, t):
+        """Black vol to expiry ``t`` (root mean forward variance)."""
+        t = np.asarray(t, dtype=float)
+        if self.is_flat:
+            return np.full_like(t, self.vols[0])
+        with np.errstate(divide="ignore", invalid="ignore"):
+            v = np.sqrt(self.variance(0.0, t) / t)
+        return np.where(t > 0, v, self.vols[0])
+
+    def shifted(self, dv: float) -> VolCurve:
+        """Every pillar vol moved by ``dv`` (used for vega and vol bands)."""
+        return VolCurve(self.times, tuple(v + dv for v in self.vols))
+
+
+def integrate_vol_product(a: VolCurve, b: VolCurve, t0, t1):
+    """Integral of sigma_a(t) * sigma_b(t) dt between ``t0`` and ``t1`` (vectorised over times).
+
+    Exact for piecewise-flat forward vols: the covariance of two log-returns over a step is this
+    integral times their correlation.
+    """
+    t0 = np.asarray(t0, dtype=float)
+    t1 = np.asarray(t1, dtype=float)
+    if a.is_flat and b.is_flat:
+        return a.vols[0] * b.vols[0] * (t1 - t0)
+    ea, va = a.pieces()
+    eb, vb = b.pieces()
+    edges = np.union1d(ea, eb)
+    left = edges[:-1]
+    right = edges[1:]
+    mid = np.where(np.isfinite(right), 0.5 * (left + right), left + 1.0)
+    sa = va[np.searchsorted(ea, mid, side="right") - 1]
+    sb = vb[np.searchsorted(eb, mid, side="right") - 1]
+    prod = sa * sb
+    lo = np.clip(t0[..., None], left, right)
+    hi = np.clip(t1[..., None], left, right)
+    return np.sum(prod * (hi - lo), axis=-1)
+
+
+# ---------------------------------------------------------------------------------------------
+# Assets, correlation, market
+# ---------------------------------------------------------------------------------------------
+@dataclass(frozen=True, slots=True)
+class Asset:
+    """One underlying: spot, Black vol term structure, continuous dividend yield."""
+
+    name: str
+    spot: float
+    vol: VolCurve
+    dividend_yield: float = 0.0
+
+    def __post_init__(self):
+        if not (np.isfinite(self.spot) and self.spot > 0):
+            raise InputError(f"spot must be positive, got {self.spot}", key=f"assets.{self.name}")
+        if any(not (np.isfinite(v) and v >= 0) for v in self.vol.vols):
+            raise InputError(f"vol must not be negative, got {self.vol.vols}",
+                             key=f"assets.{self.name}")
+
+
+@dataclass(frozen=True, slots=True)
+class Correlation:
+    """Correlation block: asset names and a symmetric positive semi-definite matrix."""
+
+    assets: tuple[str, ...]
+    matrix: tuple[tuple[float, ...], ...]
+
+    def array(self) -> np.ndarray:
+        return np.array(self.matrix, dtype=float)
+
+
+@dataclass(frozen=True, slots=True)
+class Market:
+    """Everything the model needs, as of the valuation date."""
+
+    valuation_date: date
+    currency: str
+    discount: DiscountCurve
+    assets: tuple[Asset, ...]
+    day_count: str = "ACT/365F"
+    correlation: Correlation | None = None
+    source: str | None = field(default=None, compare=False)
+
+    def __post_init__(self):
+        if self.day_count not in DAY_COUNTS:
+            raise InputError(f"unknown day count {self.day_count!r}; known: "
+                             f"{', '.join(DAY_COUNTS)}", source=self.source, key="day_count")
+
+    # -- lookups -------------------------------------------------------------------------
+    @property
+    def asset_names(self) -> tuple[str, ...]:
+        return tuple(a.name for a in self.assets)
+
+    def asset(self, name: str, *, source: str | None = None, key: str | None = None) -> Asset:
+        for a in self.assets:
+            if a.name == name:
+                return a
+        raise InputError(f"unknown asset {name!r}{did_you_mean(name, self.asset_names)}; the "
+                         f"market has {', '.join(self.asset_names) or 'no assets'}",
+                         source=source, key=key)
+
+    def time(self, d):
+        """Year fraction from the valuation date (scalar date or a sequence of dates)."""
+        if isinstance(d, date):
+            return year_fraction(self.valuation_date, d, self.day_count)
+        return np.array([year_fraction(self.valuation_date, x, self.day_count) for x in d])
+
+    def df(self, d) -> float | np.ndarray:
+        """Discount factor to a date (or dates)."""
+        return self.discount.df(self.time(d))
+
+    def forward(self, name: str, t) -> float | np.ndarray:
+        """Forward level of an asset at time ``t`` (years)."""
+        a = self.asset(name)
+        t = np.asarray(t, dtype=float)
+        f = a.spot * np.exp(-a.dividend_yield * t) / self.discount.df(t)
+        return float(f) if f.ndim == 0 else f
+
+    def correlation_matrix(self, names, *, source: str | None = None,
+                           key: str | None = None) -> np.ndarray:
+        """Correlation of the named assets (identity for one asset)."""
+        names = tuple(names)
+        if len(names) == 1:
+            return np.ones((1, 1))
+        if len(set(names)) != len(names):
+            raise InputError(f"an asset appears twice in {list(names)}", source=source, key=key)
+        if self.correlation is None:
+            raise InputError(f"assets {', '.join(names)} need a [correlation] block in the market",
+                             source=source, key=key)
+        idx = []
+        for n in names:
+            if n not in self.correlation.assets:
+                raise InputError(f"asset {n!r} is missing from the market's correlation block "
+                                 f"({', '.join(self.correlation.assets)})", source=source, key=key)
+            idx.append(self.correlation.assets.index(n))
+        return self.correlation.array()[np.ix_(idx, idx)]
+
+    # -- bumps (value semantics: a new market each time) -------------------------------
+    def with_asset(self, asset: Asset) -> Market:
+        return dataclasses.replace(
+            self, assets=tuple(asset if a.name == asset.name else a for a in self.assets))
+
+
+# ---------------------------------------------------------------------------------------------
+# Loading
+# ---------------------------------------------------------------------------------------------
+def load_market(path: str | Path) -> Market:
+    """Read and validate a market file.
+
+    Raises
+    ------
+    InputError
+        With one line naming the file, the key and the problem.
+    """
+    src = str(path)
+    top = Table(read_toml(path), src)
+    valuation = top.date("valuation_date")
+    currency = top.string("currency")
+    if not currency.strip():
+        raise top.error("currency", "must not be empty")
+    day_count = top.string("day_count", "ACT/365F", choices=DAY_COUNTS)
+
+    def tenor_times(tab: Table, key: str) -> list[float]:
+        tenors = tab.list(key)
+        out = []
+        for i, t in enumerate(tenors):
+            ten = parse_tenor(t, source=src, key=tab.key(f"{key}[{i}]"))
+            out.append(year_fraction(valuation, ten.add_to(valuation), day_count))
+        if any(b <= a for a, b in zip(out, out[1:], strict=False)):
+            raise tab.error(key, "tenors must be strictly increasing")
+        return out
+
+    disc = top.table("discount")
+    if disc.has("rate"):
+        if disc.has("tenors") or disc.has("zero_rates"):
+            raise disc.error("rate", "give either 'rate' or 'tenors' + 'zero_rates', not both")
+        curve = DiscountCurve.flat(disc.number("rate"))
+    else:
+        if not disc.has("tenors"):
+            raise disc.error("rate", "missing: give 'rate' or 'tenors' + 'zero_rates'")
+        times = tenor_times(disc, "tenors")
+        rates = disc.list("zero_rates")
+        if len(rates) != len(times):
+            raise disc.error("zero_rates", f"has {len(rates)} values for {len(times)} tenors")
+        rates = [disc.check_number(f"zero_rates[{i}]", r) for i, r in enumerate(rates)]
+        curve = DiscountCurve(tuple(times), tuple(rates))
+    disc.finish()
+
+    assets_tab = top.table("assets")
+    if not assets_tab.data:
+        raise assets_tab.error(None, "the market has no assets")
+    assets = []
+    for name in list(assets_tab.data):
+        a = assets_tab.table(name)
+        spot = a.number("spot", positive=True)
+        if a.has("vol"):
+            if a.has("vol_tenors") or a.has("vols"):
+                raise a.error("vol", "give either 'vol' or 'vol_tenors' + 'vols', not both")
+            vol = VolCurve.flat(a.number("vol", nonnegative=True))
+        elif a.has("vol_tenors"):
+            times = tenor_times(a, "vol_tenors")
+            vols = a.list("vols")
+            if len(vols) != len(times):
+                raise a.error("vols", f"has {len(vols)} values for {len(times)} tenors")
+            vols = [a.check_number(f"vols[{i}]", v, nonnegative=True) for i, v in enumerate(vols)]
+            w = [v * v * t for v, t in zip(vols, times, strict=True)]
+            for i in range(1, len(w)):
+                if w[i] < w[i - 1] - 1e-14:
+                    raise a.error(f"vols[{i}]", "total variance vol^2 * t decreases between "
+                                  f"tenors {i - 1} and {i} (negative forward variance)")
+            vol = VolCurve(tuple(times), tuple(vols))
+        else:
+            raise a.error("vol", "missing required key (or 'vol_tenors' + 'vols')")
+        q = a.number("dividend_yield", 0.0)
+        a.finish()
+        assets.append(Asset(name, spot, vol, q))
+
+    corr = None
+    ctab = top.table("correlation", None)
+    if ctab is not None:
+        names = ctab.list("assets")
+        for i, n in enumerate(names):
+            if not isinstance(n, str):
+                raise ctab.error(f"assets[{i}]", f"expected an asset name, got {n!r}")
+            if n not in assets_tab.data:
+                raise ctab.error(f"assets[{i}]", f"unknown asset {n!r}"
+                                 f"{did_you_mean(n, list(assets_tab.data))}")
+        if len(set(names)) != len(names):
+            raise ctab.error("assets", "an asset is listed twice")
+        rows = ctab.list("matrix")
+        k = len(names)
+        if len(rows) != k or any(not isinstance(r, list) or len(r) != k for r in rows):
+            raise ctab.error("matrix", f"must be {k} x {k} to match 'assets'")
+        mat = np.array([[ctab.check_number(f"matrix[{i}][{j}]", v) for j, v in enumerate(r)]
+                        for i, r in enumerate(rows)])
+        validate_correlation(mat, source=src, key="correlation.matrix")
+        corr = Correlation(tuple(names), tuple(tuple(float(x) for x in r) for r in mat))
+        ctab.finish()
+    top.finish()
+    return Market(valuation_date=valuation, currency=currency, discount=curve,
+                  assets=tuple(assets), day_count=day_count, correlation=corr, source=src)
+
+
+def validate_correlation(mat: np.ndarray, *, source: str | None = None,
+                         key: str | None = None) -> None:
+    """Symmetric, unit diagonal, entries in [-1, 1], positive semi-definite; no repair."""
+    if not np.allclose(mat, mat.T, atol=1e-12, rtol=0):
+        i, j = np.unravel_index(np.argmax(np.abs(mat - mat.T)), mat.shape)
+        raise InputError(f"not symmetric: [{i}][{j}] = {mat[i, j]:g} but [{j}][{i}] = "
+                         f"{mat[j, i]:g}", source=source, key=key)
+    if not np.allclose(np.diag(mat), 1.0, atol=1e-12, rtol=0):
+        raise InputError(f"diagonal must be 1, got {np.diag(mat).tolist()}", source=source,
+                         key=key)
+    if np.any(np.abs(mat) > 1.0):
+        i, j = np.unravel_index(np.argmax(np.abs(mat)), mat.shape)
+        raise InputError(f"entry [{i}][{j}] = {mat[i, j]:g} is outside [-1, 1]", source=source,
+                         key=key)
+    smallest = float(np.linalg.eigvalsh(mat).min())
+    if smallest < -PSD_TOLERANCE:
+        raise InputError(f"not positive semi-definite (smallest eigenvalue {smallest:.6g})",
+                         source=source, key=key)

@@ -1,0 +1,8 @@
+"""Product families. Importing this package registers every ``kind``."""
+
+from fairpath.products.base import REGISTRY, ControlVariate, PathSet, Product, product_class
+from fairpath.products.loader import load_product, product_from_dict
+from fairpath.products.vanilla import Digital, European
+
+__all__ = ["REGISTRY", "ControlVariate", "Digital", "European", "PathSet", "Product",
+           "load_product", "product_class", "product_from_dict"]

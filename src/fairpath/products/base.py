@@ -1,0 +1,149 @@
+"""The product interface, the registry of product kinds, and what the engine hands a payoff.
+
+A product never generates randomness. It declares the assets it uses and the dates on which it
+needs their levels; the engine simulates those levels and calls :meth:`Product.payoff` with a
+:class:`PathSet`, and the product returns the discounted cash of every path (quantity included).
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from datetime import date
+from typing import ClassVar
+
+import numpy as np
+
+from fairpath.errors import InputError
+from fairpath.inputs import did_you_mean
+from fairpath.market import Market
+
+#: kind name -> product class
+REGISTRY: dict[str, type[Product]] = {}
+
+
+@dataclass(frozen=True, slots=True)
+class PathSet:
+    """Simulated levels handed to a payoff, for one chunk of paths.
+
+    Attributes
+    ----------
+    market : Market
+    names : tuple of str
+        The product's assets, in the order of axis 1 of ``levels``.
+    dates : tuple of date
+        The product's observation dates, in the order of axis 2 of ``levels``.
+    levels : ndarray, shape (paths, assets, dates)
+        Levels on the observation dates (the spot on a date equal to the valuation date).
+    grid_times : ndarray
+        Year fractions of the engine's simulation grid (all > 0).
+    grid_levels : ndarray, shape (paths, assets, grid dates)
+        Levels on the whole grid (for monitoring between observation dates).
+    variance : ndarray, shape (assets, grid dates)
+        Integrated variance of each asset's log-level over each grid step.
+    """
+
+    market: Market
+    names: tuple[str, ...]
+    dates: tuple[date, ...]
+    levels: np.ndarray
+    grid_times: np.ndarray
+    grid_levels: np.ndarray
+    variance: np.ndarray
+
+    @property
+    def n(self) -> int:
+        return self.levels.shape[0]
+
+    def df(self, d: date) -> float:
+        """Discount factor from the valuation date to ``d``."""
+        return float(self.market.df(d))
+
+    def level(self, name: str, d: date) -> np.ndarray:
+        """Levels of one asset on one observation date, shape (paths,)."""
+        return self.levels[:, self.names.index(name), self.dates.index(d)]
+
+
+@dataclass(frozen=True, slots=True)
+class ControlVariate:
+    """A quantity with a known mean, simulated beside the payoff to reduce its variance."""
+
+    name: str
+    values: Callable[[PathSet], np.ndarray]
+    mean: float
+
+
+@dataclass(frozen=True, slots=True)
+class Product:
+    """Base class of every product. Subclasses set ``kind`` and implement the hooks."""
+
+    kind: ClassVar[str] = ""
+
+    name: str | None = field(default=None, kw_only=True)
+
+    def __init_subclass__(cls, **kwargs):
+        super(Product, cls).__init_subclass__(**kwargs)
+        if cls.__dict__.get("kind"):
+            REGISTRY[cls.kind] = cls
+
+    @classmethod
+    def from_table(cls, tab) -> dict:
+        """Constructor keywords read from a product file's table (``fairpath.inputs.Table``)."""
+        raise NotImplementedError
+
+    # -- what the engine asks ------------------------------------------------------------
+    def underlyings(self) -> tuple[str, ...]:
+        """Assets whose levels the payoff needs, in the order of ``PathSet.levels`` axis 1."""
+        raise NotImplementedError
+
+    def observation_dates(self) -> tuple[date, ...]:
+        """Strictly increasing dates on which the payoff needs levels."""
+        raise NotImplementedError
+
+    def check(self, market: Market, source: str | None = None) -> None:
+        """Raise :class:`InputError` if the product cannot be priced on this market."""
+        for n in self.underlyings():
+            market.asset(n, source=source, key="asset")
+        first = self.observation_dates()[0]
+        if first < market.valuation_date:
+            raise InputError(f"{first} is before the valuation date {market.valuation_date}",
+                             source=source, key=self.date_key())
+
+    def date_key(self) -> str:
+        """The product key holding its dates (for error messages)."""
+        return "expiry"
+
+    def payoff(self, paths: PathSet) -> np.ndarray:
+        """Discounted cash of every path, shape (paths,), quantity included."""
+        raise NotImplementedError
+
+    def controls(self, market: Market) -> list[ControlVariate]:
+        """Control variates with known means; by default the discounted level of every asset
+        on the last observation date, whose mean is its discounted forward."""
+        last = self.observation_dates()[-1]
+        t = market.time(last)
+        df = float(market.discount.df(t))
+        out = []
+        for n in self.underlyings():
+            mean = market.forward(n, t) * df
+
+            def values(ps: PathSet, n=n, last=last, df=df):
+                return ps.level(n, last) * df
+            out.append(ControlVariate(f"discounted {n} on {last}", values, mean))
+        return out
+
+    def closed_form(self, market: Market) -> float | None:
+        """Closed-form price under flat Black-Scholes-Merton inputs, when one exists."""
+        return None
+
+    def label(self) -> str:
+        return self.name or self.kind
+
+
+def product_class(kind: object, *, source: str | None = None) -> type[Product]:
+    """The class registered for a ``kind``; an unknown name lists the known ones."""
+    if not isinstance(kind, str) or kind not in REGISTRY:
+        known = sorted(REGISTRY)
+        raise InputError(f"unknown product kind {kind!r}{did_you_mean(str(kind), known)}; "
+                         f"known: {', '.join(known)}", source=source, key="kind")
+    return REGISTRY[kind]

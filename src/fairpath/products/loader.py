@@ -1,0 +1,32 @@
+"""Reading product files: ``kind`` picks the class from the registry, the rest are its keys."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+from fairpath.errors import InputError
+from fairpath.inputs import Table, read_toml
+from fairpath.products.base import Product, product_class
+
+
+def load_product(path: str | Path) -> Product:
+    """Read and validate a product file.
+
+    Examples
+    --------
+    >>> p = load_product("payoffs/european_call.toml")  # doctest: +SKIP
+    """
+    src = str(path)
+    return product_from_dict(read_toml(path), source=src)
+
+
+def product_from_dict(data: dict, *, source: str | None = None) -> Product:
+    """Build a product from the contents of a product file (a dict)."""
+    tab = Table(data, source)
+    cls = product_class(tab.raw("kind"), source=source)
+    kwargs = cls.from_table(tab)
+    tab.finish()
+    try:
+        return cls(**kwargs)
+    except InputError as exc:
+        raise InputError(exc.problem, source=source, key=exc.key) from None
