@@ -190,6 +190,21 @@ def test_power_of_two_warning_and_dimension_limit():
         SobolSampler(1).normals(SobolSampler(1).plan(32)[:1], 3, np.linspace(0.01, 80, 8000))
 
 
+def test_sobol_dimension_above_limit_falls_back_to_pseudo():
+    class ManyDates(fp.European):
+        kind = ""
+
+        def observation_dates(self):
+            from fairpath.dates import weekdays_between
+            return weekdays_between(VAL, self.expiry)
+
+    # 22,000+ weekdays: above scipy's Sobol limit of 21,201 dimensions
+    p = ManyDates(asset="NORDA", right="call", strike=100.0, expiry=date(2112, 1, 4))
+    with pytest.warns(fp.SamplingWarning, match="fell back to the pseudo-random"):
+        res = fp.price(p, market(), paths=64, sampler="sobol", chunk_paths=64)
+    assert res.sampler == "pseudo" and any("fell back" in n for n in res.notes)
+
+
 def test_expiry_today_is_intrinsic():
     m = market(spot=110.0)
     p = fp.European(asset="NORDA", right="call", strike=100.0, expiry=VAL, quantity=2.0)

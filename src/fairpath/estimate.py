@@ -26,16 +26,23 @@ import html
 import json
 import math
 import time
+import warnings
 from dataclasses import dataclass, field
 
 import numpy as np
 from scipy import stats
 
-from fairpath.errors import FairpathError, InputError
+from fairpath.errors import FairpathError, InputError, SamplingWarning
 from fairpath.market import Market
 from fairpath.models import GBM, simulate_log_levels
 from fairpath.products.base import ControlVariate, PathSet, Product
-from fairpath.sampling import DEFAULT_REPLICATES, Block, Sampler, make_sampler
+from fairpath.sampling import (
+    DEFAULT_REPLICATES,
+    SOBOL_MAX_DIM,
+    Block,
+    Sampler,
+    make_sampler,
+)
 
 #: Bytes of simulated state per chunk (normals, log levels); keeps memory flat in the path count.
 CHUNK_BYTES = 32 * 1024 * 1024
@@ -376,6 +383,14 @@ def price(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
     controls = product.controls(market) if control else []
     sim = Simulation(product, market, smp, controls, source)
     notes: list[str] = []
+    dim = len(sim.names) * sim.steps
+    if smp.name == "sobol" and dim > SOBOL_MAX_DIM:
+        msg = (f"the Sobol dimension {dim} ({sim.steps} dates x {len(sim.names)} assets) exceeds "
+               f"the generator's limit of {SOBOL_MAX_DIM}: fell back to the pseudo-random sampler")
+        warnings.warn(msg, SamplingWarning, stacklevel=2)
+        notes.append(msg)
+        smp = make_sampler("pseudo", seed=smp.seed, antithetic=antithetic)
+        sim.sampler = smp
     currency = market.currency
 
     if sim.steps == 0:
