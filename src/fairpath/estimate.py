@@ -365,11 +365,12 @@ def price(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
     Examples
     --------
     >>> import fairpath as fp
-    >>>     >>> m = fp.Market(date(2026, 12, 1), "EUR", fp.DiscountCurve.flat(0.05),
+    >>> from datetime import date
+    >>> m = fp.Market(date(2026, 12, 1), "EUR", fp.DiscountCurve.flat(0.05),
     ...               (fp.Asset("NORDA", 100.0, fp.VolCurve.flat(0.2)),))
     >>> call = fp.European(asset="NORDA", right="call", strike=100.0, expiry=date(2027, 12, 1))
     >>> r = fp.price(call, m, paths=4096, seed=1)
-    >>> abs(r.price - 10.4506) < 4 * r.stderr
+    >>> abs(r.price - 10.4506) < 4 * r.stderr  # BSM value of this call
     True
     """
     t_start = time.perf_counter()
@@ -380,6 +381,7 @@ def price(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
             max_paths, int) or max_paths < paths):
         raise InputError(f"must be an integer at least the path count, got {max_paths!r}",
                          key="max_paths")
+    product.check(market, source)
     controls = product.controls(market) if control else []
     sim = Simulation(product, market, smp, controls, source)
     notes: list[str] = []

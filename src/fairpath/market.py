@@ -58,7 +58,7 @@ class DiscountCurve:
         ts = np.asarray(self.times)
         rs = np.asarray(self.zero_rates)
         rt = np.interp(t, ts, ts * rs)
-        with np.errstate(divide="ignore", invalid="ignore"):
+        with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
             inner = np.where(t > 0, rt / np.where(t > 0, t, 1.0), rs[0])
         return np.where(t <= ts[0], rs[0], np.where(t >= ts[-1], rs[-1], inner))
 
