@@ -17,17 +17,8 @@ RIGHTS = ("call", "put")
 
 
 @dataclass(frozen=True, slots=True)
-class European(Product):
-    """European call or put paying ``max(S_T - K, 0)`` (call) at expiry, times ``quantity``.
-
-    Examples
-    --------
-    >>> from datetime import date
-    >>> European(asset="NORDA", right="call", strike=105.0, expiry=date(2027, 12, 1)).kind
-    'european'
-    """
-
-    kind: ClassVar[str] = "european"
+class OneAssetAtExpiry(Product):
+    """Shared terms of a payoff on one asset's level at expiry (``right``, ``strike``)."""
 
     asset: str = field(kw_only=True)
     right: str = field(kw_only=True)
@@ -47,6 +38,20 @@ class European(Product):
 
     def observation_dates(self) -> tuple[date, ...]:
         return (self.expiry,)
+
+
+@dataclass(frozen=True, slots=True)
+class European(OneAssetAtExpiry):
+    """European call or put paying ``max(S_T - K, 0)`` (call) at expiry, times ``quantity``.
+
+    Examples
+    --------
+    >>> from datetime import date
+    >>> European(asset="NORDA", right="call", strike=105.0, expiry=date(2027, 12, 1)).kind
+    'european'
+    """
+
+    kind: ClassVar[str] = "european"
 
     def intrinsic(self, s: np.ndarray) -> np.ndarray:
         if self.right == "call":
@@ -65,33 +70,18 @@ class European(Product):
 
 
 @dataclass(frozen=True, slots=True)
-class Digital(Product):
+class Digital(OneAssetAtExpiry):
     """Cash-or-nothing digital: pays ``payout`` at expiry if ``S_T > K`` (call) or ``S_T < K``
     (put), times ``quantity``."""
 
     kind: ClassVar[str] = "digital"
 
-    asset: str = field(kw_only=True)
-    right: str = field(kw_only=True)
-    strike: float = field(kw_only=True)
-    expiry: date = field(kw_only=True)
     payout: float = field(default=1.0, kw_only=True)
-    quantity: float = field(default=1.0, kw_only=True)
 
     def __post_init__(self):
         _check_common(self)
         if not np.isfinite(self.payout):
             raise InputError(f"must be a finite number, got {self.payout}", key="payout")
-
-    @classmethod
-    def from_table(cls, tab) -> dict:
-        return _vanilla_from_table(cls, tab)
-
-    def underlyings(self) -> tuple[str, ...]:
-        return (self.asset,)
-
-    def observation_dates(self) -> tuple[date, ...]:
-        return (self.expiry,)
 
     def payoff(self, paths: PathSet) -> np.ndarray:
         s = paths.levels[:, 0, 0]
