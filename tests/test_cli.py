@@ -188,7 +188,9 @@ def test_validate_json(capsys):
     rows = json.loads(out)
     assert isinstance(rows, list) and len(rows) >= 5
     for r in rows:
-        assert abs(r["z"]) <= 4, r
+        # exact references: |z| <= 4; approximate ones (BGK) carry a stated relative allowance
+        slack = r["allowance"] * abs(r["closed_form"])
+        assert abs(r["monte_carlo"] - r["closed_form"]) <= 4 * r["stderr"] + slack, r
         assert r["ok"] is True
 
 

@@ -9,12 +9,22 @@
 from fairpath.errors import FairpathError, FairpathWarning, InputError, SamplingWarning
 from fairpath.estimate import CAUTION, PriceResult, price
 from fairpath.market import Asset, Correlation, DiscountCurve, Market, VolCurve, load_market
-from fairpath.products import REGISTRY, Digital, European, Product, load_product
+from fairpath.products import (
+    REGISTRY,
+    Asian,
+    Barrier,
+    Basket,
+    Digital,
+    European,
+    Product,
+    load_product,
+)
 
 __version__ = "0.1.0"
 
 __all__ = [
-    "CAUTION", "REGISTRY", "Asset", "Correlation", "Digital", "DiscountCurve", "European",
+    "CAUTION", "REGISTRY", "Asian", "Asset", "Barrier", "Basket", "Correlation", "Digital",
+    "DiscountCurve", "European",
     "FairpathError", "FairpathWarning", "InputError", "Market", "PriceResult", "Product",
     "SamplingWarning", "VolCurve", "load_market", "load_product", "price",
 ]

@@ -1,15 +1,25 @@
-"""Closed-form European prices and Greeks in the Black-Scholes-Merton model.
+"""Closed-form prices in the Black-Scholes-Merton model: European options and Greeks, and
+exotics with exact or near-exact formulas.
 
 These are the analytic references for checking Monte Carlo prices. Everything is vectorised:
 every numeric argument may be a scalar or a numpy array, and the arguments broadcast against
 each other.
+
+* European: :func:`bsm_price`, :func:`bsm_greeks`, :func:`digital_price`,
+  :func:`digital_greeks`, :func:`asset_or_nothing_price`.
+* Lognormal building blocks: :func:`black_lognormal`, :func:`exchange_lognormal`.
+* Geometric-average Asians: :func:`geometric_asian_discrete`,
+  :func:`geometric_asian_continuous`.
+* Single barriers: :func:`barrier_price` (continuous monitoring),
+  :func:`discrete_barrier_price` and :func:`bgk_barrier` (continuity correction).
 
 Conventions (the project's contract)
 ------------------------------------
 * ``r`` continuously compounded risk-free rate, ``q`` continuous dividend yield, so the
   forward is ``F = spot * exp((r - q) * T)`` and the discount factor ``exp(-r * T)``.
 * ``sigma`` Black (lognormal) volatility, ``T`` time to expiry in years.
-* ``right`` is the string ``"call"`` or ``"put"``.
+* ``right`` is the string ``"call"`` or ``"put"``; for barriers ``direction`` is ``"down"``
+  or ``"up"`` and ``effect`` is ``"in"`` or ``"out"``.
 * Greeks: delta per 1 unit of spot, gamma per unit of spot squared, vega per 1.00 of vol
   (not per 1 %), rho per 1.00 of rate (``dV/dr`` with ``q`` held fixed), and theta per year of
   calendar time as the change in value when the valuation date moves forward,
@@ -34,9 +44,23 @@ References
 .. [H07] E. G. Haug, "The Complete Guide to Option Pricing Formulas", 2nd ed., McGraw-Hill,
    2007: chapter 1 (Black-Scholes-Merton and the generalized model with cost of carry
    ``b = r - q``), chapter 2 (Black-Scholes-Merton Greeks), chapter 4 (exotic options on a
-   single asset, including cash-or-nothing and asset-or-nothing binaries).
+   single asset, including cash-or-nothing and asset-or-nothing binaries, standard barrier
+   options and geometric average-rate options), chapter 5 (exchange-one-asset-for-another
+   options).
 .. [RR91] E. Reiner and M. Rubinstein, "Unscrambling the Binary Code", Risk 4(9), 1991
    (cash-or-nothing and asset-or-nothing options).
+.. [RR91b] E. Reiner and M. Rubinstein, "Breaking Down the Barriers", Risk 4(8), 1991
+   (the eight standard single-barrier options with rebate).
+.. [B76] F. Black, "The Pricing of Commodity Contracts", Journal of Financial Economics 3,
+   1976, 167-179.
+.. [M78] W. Margrabe, "The Value of an Option to Exchange One Asset for Another", Journal of
+   Finance 33(1), 1978, 177-186.
+.. [KV90] A. G. Z. Kemna and A. C. F. Vorst, "A Pricing Method for Options Based on Average
+   Asset Values", Journal of Banking and Finance 14(1), 1990, 113-129.
+.. [TW91] S. M. Turnbull and L. M. Wakeman, "A Quick Algorithm for Pricing European Average
+   Options", Journal of Financial and Quantitative Analysis 26(3), 1991, 377-389.
+.. [BGK97] M. Broadie, P. Glasserman and S. Kou, "A Continuity Correction for Discrete Barrier
+   Options", Mathematical Finance 7(4), 1997, 325-349.
 """
 
 from __future__ import annotations
@@ -45,18 +69,26 @@ from typing import NamedTuple
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
-from scipy.special import ndtr
+from scipy.special import erfcx, log_ndtr, ndtr
 
 from fairpath.errors import InputError
 
 __all__ = [
+    "BGK_BETA",
     "asset_or_nothing_price",
+    "barrier_price",
+    "bgk_barrier",
+    "black_lognormal",
     "bsm_greeks",
     "bsm_price",
     "digital_greeks",
     "digital_price",
     "discount",
+    "discrete_barrier_price",
+    "exchange_lognormal",
     "forward",
+    "geometric_asian_continuous",
+    "geometric_asian_discrete",
 ]
 
 _INV_SQRT_2PI = 1.0 / np.sqrt(2.0 * np.pi)
@@ -108,21 +140,26 @@ def _phi(right: object, source: str) -> float:
     raise InputError(f"must be 'call' or 'put', got {right!r}", source=source, key="right")
 
 
-def _inputs(source: str, spot: ArrayLike, strike: ArrayLike, T: ArrayLike, r: ArrayLike,
-            q: ArrayLike, sigma: ArrayLike, payout: ArrayLike = 1.0) -> _Inputs:
-    names = ("spot", "strike", "T", "r", "q", "sigma", "payout")
-    values = (spot, strike, T, r, q, sigma, payout)
+def _arrays(source: str, names: tuple[str, ...], values: tuple[ArrayLike, ...],
+            non_negative: tuple[str, ...]) -> list[NDArray[np.float64]]:
+    """Convert, check (finite; non-negative where named) and broadcast the arguments."""
     arrays = [_as_float_array(v, n, source) for n, v in zip(names, values, strict=True)]
     for name, arr in zip(names, arrays, strict=True):
-        if name in ("spot", "strike", "T", "sigma"):
+        if name in non_negative:
             _check_non_negative(arr, name, source)
     try:
-        arrays = np.broadcast_arrays(*arrays)
+        return np.broadcast_arrays(*arrays)
     except ValueError:
         shapes = ", ".join(f"{n}{a.shape}" for n, a in zip(names, arrays, strict=True))
         raise InputError(f"arguments do not broadcast together: {shapes}",
                          source=source) from None
-    return _Inputs(*arrays)
+
+
+def _inputs(source: str, spot: ArrayLike, strike: ArrayLike, T: ArrayLike, r: ArrayLike,
+            q: ArrayLike, sigma: ArrayLike, payout: ArrayLike = 1.0) -> _Inputs:
+    names = ("spot", "strike", "T", "r", "q", "sigma", "payout")
+    values = (spot, strike, T, r, q, sigma, payout)
+    return _Inputs(*_arrays(source, names, values, ("spot", "strike", "T", "sigma")))
 
 
 def _out(x: NDArray[np.float64]) -> FloatOrArray:
@@ -515,3 +552,573 @@ def asset_or_nothing_price(spot: ArrayLike, strike: ArrayLike, T: ArrayLike, r: 
     gap = phi * (Sq0 - x.strike * c.df_r)
     price0 = np.where(gap > 0.0, Sq0, 0.0)
     return _out(np.where(c.deg, price0, price))
+
+
+# --------------------------------------------------------------------------- lognormal
+
+
+def _black(F: NDArray[np.float64], K: NDArray[np.float64], v: NDArray[np.float64],
+           df: NDArray[np.float64], phi: float) -> NDArray[np.float64]:
+    """``df * E[(phi (X - K))^+]`` for lognormal ``X`` with mean ``F``, log-variance ``v``."""
+    deg = (v == 0.0) | (F == 0.0) | (K == 0.0)
+    one = np.ones_like(v)
+    F_s = np.where(deg, one, F)
+    K_s = np.where(deg, one, K)
+    sv = np.sqrt(np.where(deg, one, v))
+    with np.errstate(over="ignore"):
+        d1 = np.log(F_s / K_s) / sv + 0.5 * sv
+    d1 = np.clip(d1, -_D_CLIP, _D_CLIP)
+    d2 = np.clip(d1 - sv, -_D_CLIP, _D_CLIP)
+    price = df * phi * (F_s * ndtr(phi * d1) - K_s * ndtr(phi * d2))
+    # Degenerate case: X is known for sure (v == 0), or one side of the payoff vanishes.
+    price0 = df * np.maximum(phi * (F - K), 0.0)
+    return np.where(deg, price0, price)
+
+
+def black_lognormal(forward: ArrayLike, strike: ArrayLike, total_var: ArrayLike,
+                    df: ArrayLike, right: str) -> FloatOrArray:
+    """Discounted expected payoff of a call or put on a lognormal variable (Black 1976).
+
+    For ``X`` lognormal with ``E[X] = forward`` and ``Var(log X) = total_var``:
+    ``call = df * E[(X - K)^+] = df (F N(d1) - K N(d2))``,
+    ``put = df * E[(K - X)^+] = df (K N(-d2) - F N(-d1))``, with
+    ``d1 = (ln(F/K) + v/2) / sqrt(v)``, ``d2 = d1 - sqrt(v)`` (Black 1976 [B76]; Haug 2007
+    [H07] chapter 1). With ``F = S e^{(r-q)T}``, ``v = sigma^2 T`` and ``df = e^{-rT}`` this
+    is :func:`bsm_price`.
+
+    Parameters
+    ----------
+    forward : array_like
+        Mean of ``X``, >= 0.
+    strike : array_like
+        Strike, >= 0 (a zero strike call is worth ``df * forward``).
+    total_var : array_like
+        Variance of ``log X``, >= 0 (0 gives the discounted intrinsic value of the forward).
+    df : array_like
+        Discount factor to the payment date, >= 0.
+    right : {"call", "put"}
+
+    Returns
+    -------
+    float or ndarray
+
+    Raises
+    ------
+    InputError
+        If ``right`` is not "call"/"put", or an argument is negative, not finite, or the
+        arguments do not broadcast.
+
+    Examples
+    --------
+    >>> round(black_lognormal(105.127110, 100.0, 0.04, 0.951229, "call"), 4)
+    10.4506
+    >>> black_lognormal([90.0, 110.0], 100.0, 0.0, 0.5, "call")
+    array([0., 5.])
+    """
+    source = "black_lognormal"
+    phi = _phi(right, source)
+    names = ("forward", "strike", "total_var", "df")
+    F, K, v, d = _arrays(source, names, (forward, strike, total_var, df), names)
+    return _out(_black(F, K, v, d, phi))
+
+
+def exchange_lognormal(mean_x: ArrayLike, mean_y: ArrayLike, var_log_ratio: ArrayLike,
+                       df: ArrayLike, right: str) -> FloatOrArray:
+    """Discounted value of the option to exchange one lognormal variable for another.
+
+    For jointly lognormal ``X``, ``Y`` with means ``mean_x``, ``mean_y`` and
+    ``v = Var(log X - log Y)``: ``call = df * E[(X - Y)^+] = df (E[X] N(d1) - E[Y] N(d2))``
+    and ``put = df * E[(Y - X)^+] = df (E[Y] N(-d2) - E[X] N(-d1))``, with
+    ``d1 = (ln(E[X]/E[Y]) + v/2) / sqrt(v)``, ``d2 = d1 - sqrt(v)`` (Margrabe 1978 [M78];
+    Haug 2007 [H07] chapter 5, exchange-one-asset-for-another options). Only the
+    distribution of ``X / Y`` under the measure with numeraire ``Y`` matters, so the value is
+    that of :func:`black_lognormal` with ``forward = mean_x`` and ``strike = mean_y``.
+
+    Parameters
+    ----------
+    mean_x, mean_y : array_like
+        Means of ``X`` and ``Y``, >= 0.
+    var_log_ratio : array_like
+        ``Var(log X - log Y)``, >= 0 (0 gives ``df * max(+-(E[X] - E[Y]), 0)``).
+    df : array_like
+        Discount factor to the payment date, >= 0.
+    right : {"call", "put"}
+        "call" receives ``X - Y``, "put" receives ``Y - X`` (when positive).
+
+    Returns
+    -------
+    float or ndarray
+
+    Raises
+    ------
+    InputError
+        As for :func:`black_lognormal`.
+
+    Examples
+    --------
+    >>> round(exchange_lognormal(102.0, 100.0, 0.05, 0.97, "call"), 4)
+    9.7254
+    """
+    source = "exchange_lognormal"
+    phi = _phi(right, source)
+    names = ("mean_x", "mean_y", "var_log_ratio", "df")
+    X, Y, v, d = _arrays(source, names, (mean_x, mean_y, var_log_ratio, df), names)
+    return _out(_black(X, Y, v, d, phi))
+
+
+# --------------------------------------------------------------------------- geometric Asian
+
+
+def geometric_asian_discrete(spot: ArrayLike, strike: ArrayLike, times: ArrayLike,
+                             r: ArrayLike, q: ArrayLike, sigma: ArrayLike,
+                             right: str) -> FloatOrArray:
+    """Fixed-strike option on the discrete geometric average, flat Black-Scholes-Merton.
+
+    Pays ``(G - K)^+`` (call) or ``(K - G)^+`` (put) at the last fixing time ``t_n``, where
+    ``G = (prod_i S(t_i))^(1/n)``. Under the model ``log G`` is normal with
+    ``mean = log S + (r - q - sigma^2/2) sum_i t_i / n`` and
+    ``var = sigma^2 / n^2 sum_{i,j} min(t_i, t_j)``, so the value is
+    :func:`black_lognormal` with ``forward = exp(mean + var/2)``, ``total_var = var`` and
+    ``df = exp(-r t_n)``. This is the discrete-fixing form of the argument of Kemna & Vorst
+    (1990) [KV90] (continuous average, :func:`geometric_asian_continuous`); see Haug 2007
+    [H07] chapter 4 (geometric average-rate options) and, for discrete averaging,
+    Turnbull & Wakeman (1991) [TW91].
+
+    Parameters
+    ----------
+    spot, strike : array_like
+        Spot and strike, >= 0.
+    times : array_like
+        One-dimensional, non-decreasing fixing times in years, all > 0 (a repeated time
+        counts twice in the average). The payment is at ``times[-1]``.
+    r, q : array_like
+        Continuously compounded rate and dividend yield.
+    sigma : array_like
+        Black volatility, >= 0.
+    right : {"call", "put"}
+
+    Returns
+    -------
+    float or ndarray
+        Broadcast over ``spot``, ``strike``, ``r``, ``q`` and ``sigma``.
+
+    Raises
+    ------
+    InputError
+        If ``right`` is not "call"/"put", ``times`` is empty, not one-dimensional, not
+        positive or not non-decreasing, or another argument is invalid.
+
+    Examples
+    --------
+    >>> round(geometric_asian_discrete(100.0, 100.0, [0.25, 0.5, 0.75, 1.0], 0.05, 0.0, 0.2,
+    ...                                "call"), 4)
+    6.7335
+    """
+    source = "geometric_asian_discrete"
+    phi = _phi(right, source)
+    t = _as_float_array(times, "times", source)
+    if t.ndim != 1 or t.size == 0:
+        raise InputError(f"must be a non-empty 1-d array, got shape {t.shape}",
+                         source=source, key="times")
+    if np.any(t <= 0.0):
+        raise InputError(f"must be positive, got {t[t <= 0.0][0]}", source=source, key="times")
+    if np.any(np.diff(t) < 0.0):
+        raise InputError("must be non-decreasing", source=source, key="times")
+    names = ("spot", "strike", "r", "q", "sigma")
+    S, K, r_, q_, sig = _arrays(source, names, (spot, strike, r, q, sigma),
+                                ("spot", "strike", "sigma"))
+    n = t.size
+    # sum_{i,j} min(t_i, t_j) for sorted t: t_k is the minimum of 2 (n - k) - 1 ordered pairs
+    # (k = 0, ..., n - 1).
+    sum_min = float(np.sum(t * (2.0 * (n - np.arange(n)) - 1.0)))
+    var = sig * sig * (sum_min / (n * n))
+    with np.errstate(over="ignore"):
+        F = S * np.exp((r_ - q_ - 0.5 * sig * sig) * float(np.mean(t)) + 0.5 * var)
+    return _out(_black(F, K, var, np.exp(-r_ * t[-1]), phi))
+
+
+def geometric_asian_continuous(spot: ArrayLike, strike: ArrayLike, T: ArrayLike, r: ArrayLike,
+                               q: ArrayLike, sigma: ArrayLike, right: str) -> FloatOrArray:
+    """Fixed-strike option on the continuous geometric average (Kemna & Vorst 1990).
+
+    Pays ``(G - K)^+`` (call) or ``(K - G)^+`` (put) at ``T``, with
+    ``G = exp((1/T) int_0^T log S(t) dt)``. The value is the generalized Black-Scholes-Merton
+    price with volatility ``sigma_A = sigma / sqrt(3)`` and cost of carry
+    ``b_A = (b - sigma^2/6) / 2`` (``b = r - q``), discounted at ``r`` over ``T``:
+    ``call = S e^{(b_A - r)T} N(d1) - K e^{-rT} N(d2)`` with
+    ``d1 = (ln(S/K) + (b_A + sigma_A^2/2) T) / (sigma_A sqrt(T))`` (Kemna & Vorst 1990
+    [KV90]; Haug 2007 [H07] chapter 4, geometric average-rate options).
+
+    Parameters
+    ----------
+    spot, strike, T, r, q, sigma, right
+        As for :func:`bsm_price` (``T == 0`` gives the intrinsic value).
+
+    Returns
+    -------
+    float or ndarray
+
+    Raises
+    ------
+    InputError
+        As for :func:`bsm_price`.
+
+    Examples
+    --------
+    >>> round(geometric_asian_continuous(100.0, 100.0, 1.0, 0.05, 0.0, 0.2, "call"), 4)
+    5.5468
+    """
+    source = "geometric_asian_continuous"
+    phi = _phi(right, source)
+    x = _inputs(source, spot, strike, T, r, q, sigma)
+    b_A = 0.5 * (x.r - x.q - x.sigma * x.sigma / 6.0)
+    with np.errstate(over="ignore"):
+        F = x.spot * np.exp(b_A * x.T)
+    return _out(_black(F, x.strike, x.sigma * x.sigma * x.T / 3.0, np.exp(-x.r * x.T), phi))
+
+
+# --------------------------------------------------------------------------- barriers
+
+BGK_BETA = 0.5826
+"""Broadie-Glasserman-Kou constant ``-zeta(1/2) / sqrt(2 pi)`` (to 4 decimals)."""
+
+_SQRT_HALF = np.sqrt(0.5)
+_TINY = np.finfo(np.float64).tiny
+_DIRECTION = {"down": 1.0, "up": -1.0}  # Haug's eta
+
+# Haug 2007 [H07] chapter 4, standard barrier options: coefficients of the terms (A, B, C, D)
+# for strike >= barrier and for strike < barrier; knock-ins add E, knock-outs add F.
+_BARRIER_TERMS = {
+    ("call", "down", "in"): ((0, 0, 1, 0), (1, -1, 0, 1)),
+    ("call", "up", "in"): ((1, 0, 0, 0), (0, 1, -1, 1)),
+    ("call", "down", "out"): ((1, 0, -1, 0), (0, 1, 0, -1)),
+    ("call", "up", "out"): ((0, 0, 0, 0), (1, -1, 1, -1)),
+    ("put", "down", "in"): ((0, 1, -1, 1), (1, 0, 0, 0)),
+    ("put", "up", "in"): ((1, -1, 0, 1), (0, 0, 1, 0)),
+    ("put", "down", "out"): ((1, -1, 1, -1), (0, 0, 0, 0)),
+    ("put", "up", "out"): ((0, 1, 0, -1), (1, 0, -1, 0)),
+}
+
+
+class _BarrierInputs(NamedTuple):
+    spot: NDArray[np.float64]
+    strike: NDArray[np.float64]
+    barrier: NDArray[np.float64]
+    T: NDArray[np.float64]
+    r: NDArray[np.float64]
+    q: NDArray[np.float64]
+    sigma: NDArray[np.float64]
+    rebate: NDArray[np.float64]
+
+
+def _check_direction(direction: object, source: str) -> None:
+    if not (isinstance(direction, str) and direction in _DIRECTION):
+        raise InputError(f"must be 'down' or 'up', got {direction!r}", source=source,
+                         key="direction")
+
+
+def _barrier_kind(source: str, right: object, direction: object, effect: object) -> None:
+    _phi(right, source)
+    _check_direction(direction, source)
+    if not (isinstance(effect, str) and effect in ("in", "out")):
+        raise InputError(f"must be 'in' or 'out', got {effect!r}", source=source, key="effect")
+
+
+def _barrier_inputs(source: str, spot: ArrayLike, strike: ArrayLike, barrier: ArrayLike,
+                    T: ArrayLike, r: ArrayLike, q: ArrayLike, sigma: ArrayLike,
+                    rebate: ArrayLike) -> _BarrierInputs:
+    names = ("spot", "strike", "barrier", "T", "r", "q", "sigma", "rebate")
+    values = (spot, strike, barrier, T, r, q, sigma, rebate)
+    non_negative = ("spot", "strike", "barrier", "T", "sigma")
+    return _BarrierInputs(*_arrays(source, names, values, non_negative))
+
+
+def _tilted_ndtr(kh: NDArray, w: NDArray, gauss: NDArray) -> NDArray:
+    """``exp(kh) * N(w)`` where ``gauss == kh - w**2 / 2``, given in a form free of cancellation.
+
+    For ``Re(w) < 0`` it uses ``N(w) = erfcx(-w / sqrt(2)) exp(-w^2 / 2) / 2``, so that the two
+    large exponents of the reflection terms never have to be added. Works for complex
+    ``kh`` and ``w`` (``gauss`` real).
+    """
+    neg = np.real(w) < 0.0
+    direct = np.exp(kh + log_ndtr(np.where(neg, 0.0, w)))
+    mills = np.exp(gauss) * (0.5 * erfcx(-_SQRT_HALF * np.where(neg, w, 0.0)))
+    return np.where(neg, mills, direct)
+
+
+def _barrier(x: _BarrierInputs, right: str, direction: str, effect: str,
+             breach_level: NDArray[np.float64] | None = None) -> NDArray[np.float64]:
+    """Standard barrier price; ``breach_level`` (default: the barrier) decides the breach."""
+    phi = 1.0 if right == "call" else -1.0
+    eta = _DIRECTION[direction]
+    knock_in = effect == "in"
+    S, X, H, T, r, q, sig, R = x
+    level = H if breach_level is None else breach_level
+    b = r - q
+    df = np.exp(-r * T)
+    breached = np.less_equal(S, level) if eta > 0 else np.greater_equal(S, level)
+    det = ~breached & ((T == 0.0) | (sig * sig < _TINY) | (S == 0.0))
+    never = ~breached & ~det & (H == 0.0)  # a down barrier at 0 is never reached
+    reg = ~(breached | det | never)
+    vanilla = _bsm(_Inputs(S, X, T, r, q, sig, np.ones_like(S)), phi, greeks=False)["price"]
+
+    # Deterministic path S(t) = S e^{bt} (T == 0, sigma == 0, or S == 0 below an up barrier):
+    # it crosses the barrier at tau = ln(H/S) / b if it gets there by T.
+    with np.errstate(over="ignore"):
+        fwd = S * np.exp(b * T)
+    hit = det & ((fwd <= H) if eta > 0 else (fwd >= H))
+    one = np.ones_like(S)
+    tau = np.log(np.where(hit, H, one) / np.where(hit, S, np.e)) / np.where(hit, b, -1.0)
+    det_value = (np.where(hit, vanilla, R * df) if knock_in
+                 else np.where(hit, R * np.exp(-r * tau), vanilla))
+
+    # Regular case: Reiner & Rubinstein (1991) [RR91b], in the notation of Haug 2007 [H07]
+    # chapter 4 (eta = +1 down / -1 up, phi = +1 call / -1 put), with
+    # mu = (b - sigma^2/2) / sigma^2 and lambda = sqrt(mu^2 + 2 r / sigma^2).
+    # Substitutes (1.0) outside `reg` keep the formulas quiet there; those entries are dropped.
+    X_pos = reg & (X > 0.0)
+    S_s, H_s, T_s, sig_s = (np.where(reg, a, one) for a in (S, H, T, sig))
+    X_s = np.where(X_pos, X, one)
+    var = sig_s * sig_s
+    s = sig_s * np.sqrt(T_s)
+    m = b - 0.5 * var
+    mu = m / var
+    lam2 = m * m + 2.0 * r * var  # lambda^2 sigma^4; negative only for some r < 0
+    h = np.log(H_s / S_s)  # < 0 for down, > 0 for up
+    ell = np.where(X_pos, np.log(S_s / X_s), np.inf)  # ln(S/X); +inf for a zero strike
+    ln_HX = np.log(H_s / X_s)
+    Sq = S_s * np.exp((b - r) * T_s)
+    Xr = np.where(X_pos, X_s, 0.0) * np.exp(-r * T_s)
+    with np.errstate(all="ignore"):
+        # Terms of branches that do not apply to an entry may overflow; each term of the
+        # branch that applies is bounded (a discounted probability, or the asset's value
+        # times one), and the unused ones are discarded by np.where below.
+        ms = (1.0 + mu) * s
+        x1 = ell / s + ms
+        x2 = -h / s + ms
+        y1 = np.where(X_pos, (2.0 * h + ell) / s + ms, np.inf)
+        y2 = h / s + ms
+        # exp(k h) N(w) for the reflected terms, with k h - w^2/2 simplified by hand:
+        # y1: -x1^2/2 - 2 h ln(H/X) / s^2,  y1 - s: -(x1 - s)^2/2 - 2 h ln(H/X) / s^2,
+        # y2: -x2^2/2,  y2 - s: -(x2 - s)^2/2,  z and z - 2 lambda s: -(x2 - s)^2/2 - r T.
+        cross = np.where(X_pos, 2.0 * h * ln_HX / (s * s), np.inf)
+        A = phi * (Sq * ndtr(phi * x1) - Xr * ndtr(phi * (x1 - s)))
+        B = phi * (Sq * ndtr(phi * x2) - Xr * ndtr(phi * (x2 - s)))
+        C = phi * (Sq * _tilted_ndtr(2.0 * (mu + 1.0) * h, eta * y1, -0.5 * x1 * x1 - cross)
+                   - Xr * _tilted_ndtr(2.0 * mu * h, eta * (y1 - s),
+                                       -0.5 * (x1 - s) ** 2 - cross))
+        refl = _tilted_ndtr(2.0 * mu * h, eta * (y2 - s), -0.5 * (x2 - s) ** 2)
+        D = phi * (Sq * _tilted_ndtr(2.0 * (mu + 1.0) * h, eta * y2, -0.5 * x2 * x2) - Xr * refl)
+        if knock_in:  # rebate paid at expiry if the barrier is never hit
+            extra = R * np.exp(-r * T_s) * (ndtr(eta * (x2 - s)) - refl)
+        else:  # rebate paid when the barrier is hit: R E[e^{-r tau}; tau <= T]
+            g = -0.5 * (x2 - s) ** 2 - r * T_s
+            lam = np.sqrt(np.maximum(lam2, 0.0)) / var
+            z = h / s + lam * s
+            hit_pv = (_tilted_ndtr((mu + lam) * h, eta * z, g)
+                      + _tilted_ndtr((mu - lam) * h, eta * (z - 2.0 * lam * s), g))
+            if np.any(reg & (lam2 < 0.0)):
+                # lambda = i w: the two terms are complex conjugates.
+                w = np.sqrt(np.maximum(-lam2, 0.0)) / var
+                hit_c = 2.0 * np.real(_tilted_ndtr((mu + 1j * w) * h, eta * (h / s + 1j * w * s),
+                                                   g))
+                hit_pv = np.where(lam2 < 0.0, hit_c, hit_pv)
+            extra = R * hit_pv
+
+        terms = (A, B, C, D)
+        hi, lo = _BARRIER_TERMS[(right, direction, effect)]
+
+        def combine(coefs: tuple[int, ...]) -> NDArray[np.float64]:
+            total = np.zeros_like(S_s)
+            for c, term in zip(coefs, terms, strict=True):
+                if c:
+                    total = total + c * term
+            return total
+
+        regular = np.where(X >= H, combine(hi), combine(lo)) + extra
+
+    return np.select([breached, det, never],
+                     [vanilla if knock_in else R, det_value,
+                      R * df if knock_in else vanilla], default=regular)
+
+
+def barrier_price(spot: ArrayLike, strike: ArrayLike, barrier: ArrayLike, T: ArrayLike,
+                  r: ArrayLike, q: ArrayLike, sigma: ArrayLike, right: str, direction: str,
+                  effect: str, rebate: ArrayLike = 0.0) -> FloatOrArray:
+    """Price of a continuously monitored single-barrier European option with rebate.
+
+    The eight standard barrier options (down/up, in/out, call/put) of Merton (1973) [M73]
+    (down-and-out call) and Reiner & Rubinstein (1991) [RR91b], in the form of Haug 2007
+    [H07] chapter 4 (standard barrier options): with ``b = r - q``, ``eta = +1`` (down) or
+    ``-1`` (up), ``phi = +1`` (call) or ``-1`` (put), ``mu = (b - sigma^2/2) / sigma^2``,
+    ``lambda = sqrt(mu^2 + 2r/sigma^2)`` and ``s = sigma sqrt(T)``,
+
+    * ``A = phi S e^{(b-r)T} N(phi x1) - phi X e^{-rT} N(phi (x1 - s))``,
+    * ``B``: as ``A`` with ``x2`` for ``x1``,
+    * ``C = phi S e^{(b-r)T} (H/S)^{2(mu+1)} N(eta y1) - phi X e^{-rT} (H/S)^{2mu}
+      N(eta (y1 - s))``,
+    * ``D``: as ``C`` with ``y2`` for ``y1``,
+    * ``E = R e^{-rT} (N(eta (x2 - s)) - (H/S)^{2mu} N(eta (y2 - s)))`` (knock-in rebate,
+      paid at expiry if the barrier was never hit),
+    * ``F = R ((H/S)^{mu+lambda} N(eta z) + (H/S)^{mu-lambda} N(eta (z - 2 lambda s)))``
+      (knock-out rebate, paid at the hitting time),
+
+    where ``x1 = ln(S/X)/s + (1+mu) s``, ``x2 = ln(S/H)/s + (1+mu) s``,
+    ``y1 = ln(H^2/(S X))/s + (1+mu) s``, ``y2 = ln(H/S)/s + (1+mu) s`` and
+    ``z = ln(H/S)/s + lambda s``. For example the down-and-out call is ``A - C + F`` if
+    ``X >= H`` and ``B - D + F`` otherwise. The reflection terms are evaluated with a scaled
+    complementary error function so that tiny volatilities do not overflow, and a complex
+    ``lambda`` (possible when ``r < 0``) is handled exactly.
+
+    Parameters
+    ----------
+    spot, strike : array_like
+        Spot and strike, >= 0.
+    barrier : array_like
+        Barrier level ``H``, >= 0.
+    T, r, q : array_like
+        As for :func:`bsm_price`.
+    sigma : array_like
+        Black volatility, >= 0. With ``sigma == 0`` (or so small that ``sigma**2``
+        underflows) the path ``S e^{(r-q)t}`` is deterministic and is valued exactly: a
+        knock-out hit at ``tau = ln(H/S)/(r-q)`` pays ``rebate * e^{-r tau}``, a knock-in
+        hit by ``T`` is the discounted intrinsic value of the forward.
+    right : {"call", "put"}
+    direction : {"down", "up"}
+    effect : {"in", "out"}
+    rebate : array_like, default 0.0
+        Cash paid at the hitting time (knock-out) or at expiry if never hit (knock-in).
+
+    Returns
+    -------
+    float or ndarray
+        If the spot is already through the barrier (down: ``spot <= barrier``, up:
+        ``spot >= barrier``) a knock-in is the vanilla :func:`bsm_price` and a knock-out is
+        worth ``rebate`` (paid now, undiscounted). At ``T == 0`` this gives the intrinsic
+        value of a knock-in or knock-out that is not knocked, and otherwise the rebate.
+
+    Raises
+    ------
+    InputError
+        If ``right``, ``direction`` or ``effect`` is not one of its values, or an argument
+        is negative where it must not be, not finite, or the arguments do not broadcast.
+
+    Examples
+    --------
+    >>> round(barrier_price(100.0, 100.0, 95.0, 0.5, 0.08, 0.04, 0.25, "call", "down", "out",
+    ...                     rebate=3.0), 4)
+    6.7924
+    >>> barrier_price([90.0, 100.0], 100.0, 95.0, 0.5, 0.08, 0.04, 0.25, "call", "down",
+    ...               "out", rebate=3.0).round(4)
+    array([3.    , 6.7924])
+    """
+    source = "barrier_price"
+    _barrier_kind(source, right, direction, effect)
+    x = _barrier_inputs(source, spot, strike, barrier, T, r, q, sigma, rebate)
+    return _out(_barrier(x, right, direction, effect))
+
+
+def bgk_barrier(barrier: ArrayLike, sigma: ArrayLike, dt: ArrayLike,
+                direction: str) -> FloatOrArray:
+    """Continuity-corrected barrier for discrete monitoring (Broadie, Glasserman & Kou 1997).
+
+    A barrier monitored every ``dt`` years is approximated by the continuously monitored
+    barrier ``H e^{+beta sigma sqrt(dt)}`` (up) or ``H e^{-beta sigma sqrt(dt)}`` (down),
+    shifted away from the spot, with ``beta = -zeta(1/2) / sqrt(2 pi) ~= 0.5826``
+    (:data:`BGK_BETA`) [BGK97]. The error is ``o(1/sqrt(m))`` for ``m`` monitoring dates.
+
+    Parameters
+    ----------
+    barrier : array_like
+        Barrier level, >= 0.
+    sigma : array_like
+        Black volatility, >= 0.
+    dt : array_like
+        Time between monitoring dates in years, >= 0 (0 leaves the barrier unchanged).
+    direction : {"down", "up"}
+
+    Returns
+    -------
+    float or ndarray
+
+    Raises
+    ------
+    InputError
+        If ``direction`` is not "down"/"up", or an argument is negative or not finite.
+
+    Examples
+    --------
+    >>> round(bgk_barrier(110.0, 0.3, 1.0 / 252.0, "up"), 4)
+    111.2178
+    """
+    source = "bgk_barrier"
+    _check_direction(direction, source)
+    names = ("barrier", "sigma", "dt")
+    H, sig, dt_ = _arrays(source, names, (barrier, sigma, dt), names)
+    return _out(_bgk(H, sig, dt_, direction))
+
+
+def _bgk(H: NDArray[np.float64], sig: NDArray[np.float64], dt: NDArray[np.float64],
+         direction: str) -> NDArray[np.float64]:
+    return H * np.exp(-_DIRECTION[direction] * BGK_BETA * sig * np.sqrt(dt))
+
+
+def discrete_barrier_price(spot: ArrayLike, strike: ArrayLike, barrier: ArrayLike,
+                           T: ArrayLike, r: ArrayLike, q: ArrayLike, sigma: ArrayLike,
+                           right: str, direction: str, effect: str, rebate: ArrayLike,
+                           monitoring_count: ArrayLike) -> FloatOrArray:
+    """Approximate price of a barrier option monitored at ``m`` equally spaced dates.
+
+    :func:`barrier_price` with the barrier moved to :func:`bgk_barrier` for
+    ``dt = T / monitoring_count`` (Broadie, Glasserman & Kou 1997 [BGK97]); the monitoring
+    dates are ``T/m, 2T/m, ..., T``. The correction is proved for the option without rebate;
+    with a rebate the same shifted barrier is used for the rebate terms, which is a
+    heuristic (a discretely monitored knock-out pays its rebate at a monitoring date).
+    Whether the spot is already through the barrier is decided against the unshifted
+    barrier.
+
+    Parameters
+    ----------
+    spot, strike, barrier, T, r, q, sigma, right, direction, effect, rebate
+        As for :func:`barrier_price`.
+    monitoring_count : array_like
+        Number of monitoring dates ``m``, a positive whole number, or ``inf`` for
+        continuous monitoring.
+
+    Returns
+    -------
+    float or ndarray
+
+    Raises
+    ------
+    InputError
+        As for :func:`barrier_price`, or if ``monitoring_count`` is not a positive whole
+        number or ``inf``.
+
+    Examples
+    --------
+    >>> round(discrete_barrier_price(100.0, 100.0, 95.0, 0.5, 0.08, 0.04, 0.25, "call",
+    ...                              "down", "out", 0.0, 126), 4)
+    5.0485
+    """
+    source = "discrete_barrier_price"
+    _barrier_kind(source, right, direction, effect)
+    try:
+        m = np.asarray(monitoring_count, dtype=np.float64)
+    except (TypeError, ValueError):
+        raise InputError(f"must be a positive whole number, got {monitoring_count!r}",
+                         source=source, key="monitoring_count") from None
+    bad = np.isnan(m) | (m < 1.0) | (np.isfinite(m) & (m != np.floor(m)))
+    if np.any(bad):
+        raise InputError(f"must be a positive whole number or inf, got {m[bad].flat[0]}",
+                         source=source, key="monitoring_count")
+    x = _barrier_inputs(source, spot, strike, barrier, T, r, q, sigma, rebate)
+    try:
+        *arrays, m = np.broadcast_arrays(*x, m)
+    except ValueError:
+        raise InputError(f"does not broadcast with the other arguments, shape {m.shape}",
+                         source=source, key="monitoring_count") from None
+    x = _BarrierInputs(*arrays)
+    shifted = _bgk(x.barrier, x.sigma, x.T / m, direction)
+    return _out(_barrier(x._replace(barrier=shifted), right, direction, effect,
+                         breach_level=x.barrier))

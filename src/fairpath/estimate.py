@@ -32,6 +32,7 @@ from dataclasses import dataclass, field
 import numpy as np
 from scipy import stats
 
+from fairpath.dates import weekdays_between
 from fairpath.errors import FairpathError, InputError, SamplingWarning
 from fairpath.market import Market
 from fairpath.models import GBM, simulate_log_levels
@@ -178,9 +179,11 @@ class Simulation:
         self.names = product.underlyings()
         self.model = GBM.from_market(market, self.names, source=source)
         self.dates = tuple(product.observation_dates())
-        t_obs = np.atleast_1d(market.time(self.dates)).astype(float)
-        future = [d for d, t in zip(self.dates, t_obs, strict=True) if t > 0]
-        self.grid_dates = tuple(sorted(set(future)))
+        future = {d for d in self.dates if d > market.valuation_date}
+        daily = product.daily_until()
+        if daily is not None:
+            future.update(weekdays_between(market.valuation_date, daily))
+        self.grid_dates = tuple(sorted(future))
         self.grid_times = np.atleast_1d(market.time(self.grid_dates)).astype(float) \
             if self.grid_dates else np.zeros(0)
         # column of each observation date in the grid; -1 = on the valuation date (spot)
@@ -203,8 +206,8 @@ class Simulation:
             else:
                 levels[:, :, k] = grid_levels[:, :, g]
         var = self.params.variance if self.params is not None else np.zeros((len(self.names), 0))
-        return PathSet(self.market, self.names, self.dates, levels, self.grid_times,
-                       grid_levels, var)
+        return PathSet(self.market, self.names, self.dates, levels, self.spots, self.grid_dates,
+                       self.grid_times, grid_levels, var)
 
     def sample_values(self, ps: PathSet) -> np.ndarray:
         """(paths, 1 + controls): discounted payoff, then each control's value."""
@@ -266,71 +269,63 @@ class Estimate:
 
 def combine(moments: dict[Block, Moments], blocks: list[Block], controls: list[ControlVariate],
             sampler: Sampler) -> Estimate:
-    """Price, standard error and interval from the blocks' moments (see the module notes)."""
-    parts = [moments[b] for b in blocks]
-    pooled = merge_all(parts)
-    m = len(controls)
-    notes: list[str] = []
-    mu = np.array([c.mean for c in controls])
+    """Price, standard error and interval from the blocks' moments (see the module notes).
+
+    Candidate control sets are: none, all usable controls together, and each usable control
+    alone; the set with the smallest estimated variance is kept.
+    """
+    pooled = merge_all([moments[b] for b in blocks])
     cov = pooled.cov()
-    b = np.zeros(0)
-    use = []
-    if m:
-        # drop controls that do not vary (e.g. a date on the valuation date)
-        var_x = np.diag(cov)[1:]
-        scale = 1.0 + np.abs(pooled.mean[1:]) ** 2
-        use = [i for i in range(m) if var_x[i] > 1e-13 * scale[i]]
-        if use:
-            idx = np.array(use) + 1
-            cxx = cov[np.ix_(idx, idx)]
-            cxy = cov[idx, 0]
-            b = np.linalg.lstsq(cxx, cxy, rcond=None)[0]
-    idx = np.array(use, dtype=int) + 1
+    mu = np.array([c.mean for c in controls])
+    notes: list[str] = []
+    # a control that does not vary (e.g. a date on the valuation date) cannot help
+    var_x = np.diag(cov)[1:]
+    scale = 1.0 + np.abs(pooled.mean[1:]) ** 2
+    usable = [i for i in range(len(controls)) if var_x[i] > 1e-13 * scale[i]]
 
-    def controlled(mean_vec: np.ndarray) -> float:
-        if not len(use):
-            return float(mean_vec[0])
-        return float(mean_vec[0] - b @ (mean_vec[idx] - mu[np.array(use)]))
-
-    replicated = sampler.replicates is not None
-    if replicated:
+    if sampler.replicates is not None:
         reps: dict[int, list[Moments]] = {}
         for blk in blocks:
             reps.setdefault(blk.replicate, []).append(moments[blk])
-        rep_means = [merge_all(v).mean for _, v in sorted(reps.items())]
-        r = len(rep_means)
-        raw = np.array([mv[0] for mv in rep_means])
-        var_raw = float(np.var(raw, ddof=1)) / r
-        ctl = np.array([controlled(mv) for mv in rep_means])
-        var_ctl = float(np.var(ctl, ddof=1)) / r
-        quant = float(stats.t.ppf(0.975, r - 1))
-        price_raw, price_ctl = float(raw.mean()), float(ctl.mean())
+        groups = np.array([merge_all(v).mean for _, v in sorted(reps.items())])
+        quant = float(stats.t.ppf(0.975, len(groups) - 1))
     else:
-        n = pooled.n
-        var_raw = float(cov[0, 0]) / n
-        if len(use):
-            cyx = cov[idx, 0]
-            var_ctl = max(float(cov[0, 0] - cyx @ b), 0.0) / n
-        else:
-            var_ctl = var_raw
+        groups = None
         quant = float(stats.norm.ppf(0.975))
-        price_raw, price_ctl = float(pooled.mean[0]), controlled(pooled.mean)
 
+    def estimate(subset: list[int]) -> tuple[float, float]:
+        """(price, variance of the price) with the controls in ``subset``."""
+        idx = np.array(subset, dtype=int) + 1
+        if subset:
+            coef = np.linalg.lstsq(cov[np.ix_(idx, idx)], cov[idx, 0], rcond=None)[0]
+        if groups is not None:  # randomized QMC: spread of the scramblings' estimates
+            est = groups[:, 0] - (groups[:, idx] - mu[subset]) @ coef if subset else groups[:, 0]
+            return float(est.mean()), float(np.var(est, ddof=1)) / len(est)
+        if not subset:
+            return float(pooled.mean[0]), float(cov[0, 0]) / pooled.n
+        price = float(pooled.mean[0] - coef @ (pooled.mean[idx] - mu[subset]))
+        return price, max(float(cov[0, 0] - cov[idx, 0] @ coef), 0.0) / pooled.n
+
+    candidates: list[list[int]] = [[]]
+    if usable:
+        candidates.append(usable)
+        if len(usable) > 1:
+            candidates.extend([i] for i in usable)
+    results = [estimate(c) for c in candidates]
+    best = min(range(len(candidates)), key=lambda k: (results[k][1], len(candidates[k])))
+    price, var = results[best]
+    var_raw = results[0][1]
+    chosen = candidates[best]
     vrf = None
-    names: tuple[str, ...] = ()
-    if len(use):
-        if var_ctl < var_raw:
-            vrf = var_raw / var_ctl if var_ctl > 0 else math.inf
-            price, var = price_ctl, var_ctl
-            names = tuple(controls[i].name for i in use)
-        else:
-            notes.append("control variate switched off: it did not reduce the variance")
-            price, var = price_raw, var_raw
-    else:
-        price, var = price_raw, var_raw
+    if chosen:
+        vrf = var_raw / var if var > 0 else None
+        if var == 0:
+            notes.append("the control variate explains the payoff exactly (zero variance)")
+    elif usable:
+        notes.append("control variates switched off: none reduced the variance")
     se = math.sqrt(max(var, 0.0))
-    return Estimate(price, se, (price - quant * se, price + quant * se), pooled.n, names,
-                    vrf if vrf is None or math.isfinite(vrf) else None, tuple(notes))
+    return Estimate(price, se, (price - quant * se, price + quant * se), pooled.n,
+                    tuple(controls[i].name for i in chosen), vrf, tuple(notes))
 
 
 # ---------------------------------------------------------------------------------------------
@@ -398,7 +393,8 @@ def price(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
     if sim.steps == 0:
         v = sim.deterministic_value()
         val = float(v[0])
-        notes.append("every date is on the valuation date: intrinsic value, no simulation")
+        notes.extend(product.notes(market))
+        notes.append("nothing left to simulate: every level the payoff needs is known")
         return PriceResult(val, 0.0, (val, val), 0, currency, smp.name, smp.seed,
                            time.perf_counter() - t_start, product.label(), smp.antithetic,
                            smp.replicates, (), None, tuple(notes))
@@ -418,6 +414,7 @@ def price(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
                          f"{max_paths:,} paths")
             break
         n *= 2
+    notes.extend(product.notes(market))
     notes.extend(est.notes)
     if est.variance_reduction is not None:
         notes.append(f"control variate ({'; '.join(est.controls)}): variance reduced "

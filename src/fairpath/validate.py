@@ -1,8 +1,12 @@
 """Monte Carlo against closed forms: the suite behind ``fairpath validate``.
 
 Each case prices a product by Monte Carlo at a fixed seed and compares it with its published
-closed form (Black-Scholes-Merton for calls and puts, the cash-or-nothing formula for digitals);
-``z = (MC - closed form) / stderr``. A case fails when ``|z| > Z_LIMIT``.
+closed form: Black-Scholes-Merton for calls and puts, the cash-or-nothing formula for digitals,
+the discrete geometric-average formula for geometric Asians, Reiner-Rubinstein for continuously
+monitored barriers (with rebate) and the Broadie-Glasserman-Kou shift of it for discretely
+monitored ones. ``z = (MC - closed form) / stderr``. A case fails when
+``|MC - closed form| > Z_LIMIT * stderr + allowance * |closed form|`` (the allowance is zero for
+exact references).
 """
 
 from __future__ import annotations
@@ -12,10 +16,18 @@ from datetime import date
 
 from fairpath.estimate import price
 from fairpath.market import Asset, DiscountCurve, Market, VolCurve
+from fairpath.products.asian import Asian
+from fairpath.products.barrier import Barrier
 from fairpath.products.base import Product
+from fairpath.products.basket import Basket
 from fairpath.products.vanilla import Digital, European
 
 Z_LIMIT = 4.0
+#: The Broadie-Glasserman-Kou shift is an approximation. Against independent brute-force
+#: simulations (plain numpy, 2 million paths) of the two weekly cases below, it was off by 0.4%
+#: (down-and-in put) and 2.5% (up-and-out call, barrier four weekly standard deviations above
+#: spot) of the discretely monitored price; we allow 3%.
+BGK_ALLOWANCE = 0.03
 VALUATION = date(2026, 12, 1)
 
 
@@ -29,6 +41,8 @@ class Case:
     control: bool = True
     paths: int = 65536
     seed: int = 11
+    #: relative bias allowed on top of Z_LIMIT standard errors (approximate references only)
+    allowance: float = 0.0
 
 
 @dataclass(frozen=True, slots=True)
@@ -39,15 +53,17 @@ class CaseResult:
     closed_form: float
     stderr: float
     z: float
+    allowance: float = 0.0
 
     @property
     def ok(self) -> bool:
-        return abs(self.z) <= Z_LIMIT
+        slack = self.allowance * abs(self.closed_form)
+        return abs(self.monte_carlo - self.closed_form) <= Z_LIMIT * self.stderr + slack
 
     def to_dict(self) -> dict:
         return {"case": self.name, "sampler": self.sampler, "monte_carlo": self.monte_carlo,
                 "closed_form": self.closed_form, "stderr": self.stderr, "z": self.z,
-                "ok": self.ok}
+                "allowance": self.allowance, "ok": self.ok}
 
 
 def flat_market(spot=100.0, vol=0.25, rate=0.05, dividend_yield=0.02) -> Market:
@@ -88,6 +104,51 @@ def default_cases() -> list[Case]:
              asset="NORDA", right="put", strike=100.0, expiry=three_months), m_noq, "sobol",
              antithetic=True),
     ]
+    cases += path_dependent_cases()
+    return cases
+
+
+def path_dependent_cases() -> list[Case]:
+    """Asian, barrier and basket cases with an exact or published reference."""
+    from datetime import timedelta
+
+    weekly = tuple(date(2026, 12, 8) + timedelta(weeks=i) for i in range(52))
+    pay = date(2027, 11, 30)
+    m = flat_market()
+    six_months = date(2027, 6, 1)
+    # the barrier setting of Haug's standard barrier table: r = 8%, b = 4%, T ~ 0.5, rebate 3
+    h = flat_market(rate=0.08, dividend_yield=0.04, vol=0.25)
+    cases = [
+        Case("geometric asian call K=100 52 weekly", Asian(
+            asset="NORDA", right="call", strike=100.0, fixings=weekly, expiry=pay,
+            average="geometric"), m, "sobol", seed=21),
+        Case("geometric asian put floating 52 weekly", Asian(
+            asset="NORDA", right="put", strike="floating", fixings=weekly, expiry=pay,
+            average="geometric"), m, "sobol", seed=22),
+        Case("down-and-out call K=100 H=85 continuous", Barrier(
+            asset="NORDA", right="call", strike=100.0, expiry=date(2027, 12, 1), barrier=85.0,
+            direction="down", effect="out"), m, "sobol", seed=23),
+        Case("down-and-out call K=90 H=95 rebate 3", Barrier(
+            asset="NORDA", right="call", strike=90.0, expiry=six_months, barrier=95.0,
+            direction="down", effect="out", rebate=3.0), h, "sobol", seed=24),
+        Case("up-and-in put K=100 H=105 rebate 3", Barrier(
+            asset="NORDA", right="put", strike=100.0, expiry=six_months, barrier=105.0,
+            direction="up", effect="in", rebate=3.0), h, "sobol", seed=25),
+        Case("up-and-out put K=110 H=105 rebate 3 pseudo", Barrier(
+            asset="NORDA", right="put", strike=110.0, expiry=six_months, barrier=105.0,
+            direction="up", effect="out", rebate=3.0), h, "pseudo", seed=26),
+        Case("down-and-in put K=100 H=90 weekly (BGK)", Barrier(
+            asset="NORDA", right="put", strike=100.0, expiry=six_months, barrier=90.0,
+            direction="down", effect="in", monitoring=weekly[:26]), h, "sobol", seed=27,
+            allowance=BGK_ALLOWANCE),
+        Case("up-and-out call K=95 H=115 weekly (BGK)", Barrier(
+            asset="NORDA", right="call", strike=95.0, expiry=six_months, barrier=115.0,
+            direction="up", effect="out", monitoring=weekly[:26]), h, "sobol", seed=29,
+            allowance=BGK_ALLOWANCE),
+        Case("one-asset basket put = BSM put", Basket(
+            assets=("NORDA",), combine="worst", right="put", strike_level=1.0,
+            expiry=date(2027, 12, 1), notional=100.0), m, "sobol", seed=28),
+    ]
     return cases
 
 
@@ -100,7 +161,7 @@ def run(cases: list[Case] | None = None) -> list[CaseResult]:
         ref = c.product.closed_form(c.market)
         z = (r.price - ref) / r.stderr if r.stderr > 0 else (0.0 if r.price == ref else
                                                               float("inf"))
-        out.append(CaseResult(c.name, c.sampler, r.price, ref, r.stderr, z))
+        out.append(CaseResult(c.name, c.sampler, r.price, ref, r.stderr, z, c.allowance))
     return out
 
 
@@ -112,5 +173,7 @@ def table(results: list[CaseResult]) -> str:
         lines.append(f"{r.name:<44} {r.sampler:<7} {r.monte_carlo:>12.6f} {r.closed_form:>12.6f} "
                      f"{r.stderr:>10.6f} {r.z:>7.2f}  {'yes' if r.ok else 'NO'}")
     n_bad = sum(not r.ok for r in results)
-    lines.append(f"{len(results) - n_bad} of {len(results)} cases within |z| <= {Z_LIMIT:g}")
+    lines.append(f"{len(results) - n_bad} of {len(results)} cases within |z| <= {Z_LIMIT:g} "
+                 f"(plus {BGK_ALLOWANCE:.0%} of the price where the reference is the "
+                 "Broadie-Glasserman-Kou approximation)")
     return "\n".join(lines)

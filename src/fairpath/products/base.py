@@ -35,18 +35,26 @@ class PathSet:
         The product's observation dates, in the order of axis 2 of ``levels``.
     levels : ndarray, shape (paths, assets, dates)
         Levels on the observation dates (the spot on a date equal to the valuation date).
+    spots : ndarray, shape (assets,)
+        Levels on the valuation date.
+    grid_dates : tuple of date
+        The engine's simulation grid (every date after the valuation date on which levels are
+        simulated: the observation dates, plus the weekdays of any daily monitoring).
     grid_times : ndarray
-        Year fractions of the engine's simulation grid (all > 0).
+        Year fractions of ``grid_dates`` (all > 0).
     grid_levels : ndarray, shape (paths, assets, grid dates)
         Levels on the whole grid (for monitoring between observation dates).
     variance : ndarray, shape (assets, grid dates)
-        Integrated variance of each asset's log-level over each grid step.
+        Integrated variance of each asset's log-level over each grid step (the first step starts
+        on the valuation date).
     """
 
     market: Market
     names: tuple[str, ...]
     dates: tuple[date, ...]
     levels: np.ndarray
+    spots: np.ndarray
+    grid_dates: tuple[date, ...]
     grid_times: np.ndarray
     grid_levels: np.ndarray
     variance: np.ndarray
@@ -62,6 +70,11 @@ class PathSet:
     def level(self, name: str, d: date) -> np.ndarray:
         """Levels of one asset on one observation date, shape (paths,)."""
         return self.levels[:, self.names.index(name), self.dates.index(d)]
+
+    def grid_columns(self, start: date, end: date) -> np.ndarray:
+        """Indices of the grid dates ``d`` with ``start < d <= end``."""
+        return np.array([i for i, d in enumerate(self.grid_dates) if start < d <= end],
+                        dtype=int)
 
 
 @dataclass(frozen=True, slots=True)
@@ -97,21 +110,32 @@ class Product:
         raise NotImplementedError
 
     def observation_dates(self) -> tuple[date, ...]:
-        """Strictly increasing dates on which the payoff needs levels."""
+        """Strictly increasing dates on which the payoff needs levels (may be empty when
+        everything is already fixed)."""
         raise NotImplementedError
+
+    def daily_until(self) -> date | None:
+        """Last date of a daily (weekday) monitoring, if the product monitors daily: the engine
+        then adds every weekday after the valuation date up to this date to its grid."""
+        return None
 
     def check(self, market: Market, source: str | None = None) -> None:
         """Raise :class:`InputError` if the product cannot be priced on this market."""
+        key = "assets" if len(self.underlyings()) > 1 else "asset"
         for n in self.underlyings():
-            market.asset(n, source=source, key="asset")
-        first = self.observation_dates()[0]
-        if first < market.valuation_date:
-            raise InputError(f"{first} is before the valuation date {market.valuation_date}",
+            market.asset(n, source=source, key=key)
+        dates = self.observation_dates()
+        if dates and dates[0] < market.valuation_date:
+            raise InputError(f"{dates[0]} is before the valuation date {market.valuation_date}",
                              source=source, key=self.date_key())
 
     def date_key(self) -> str:
         """The product key holding its dates (for error messages)."""
         return "expiry"
+
+    def notes(self, market: Market) -> tuple[str, ...]:
+        """Remarks on the trade's state to show beside its price (e.g. a barrier already hit)."""
+        return ()
 
     def payoff(self, paths: PathSet) -> np.ndarray:
         """Discounted cash of every path, shape (paths,), quantity included."""
@@ -120,7 +144,10 @@ class Product:
     def controls(self, market: Market) -> list[ControlVariate]:
         """Control variates with known means; by default the discounted level of every asset
         on the last observation date, whose mean is its discounted forward."""
-        last = self.observation_dates()[-1]
+        dates = self.observation_dates()
+        if not dates:
+            return []
+        last = dates[-1]
         t = market.time(last)
         df = float(market.discount.df(t))
         out = []

@@ -1,0 +1,178 @@
+"""Performance baskets: worst-of, best-of and weighted-average calls and puts.
+
+Each asset's performance is ``S_i(T) / S_i(0)`` (its level at expiry over its level on the
+valuation date). The basket level is the smallest (``worst``), the largest (``best``) or the
+weighted sum (``average``, ``weights`` summing to 1, equal by default) of the performances. A call
+pays ``notional * max(B - strike_level, 0)``, a put ``notional * max(strike_level - B, 0)``, at
+expiry.
+
+Control variates offered to the estimator (it keeps the set that reduces the variance most):
+the same option on the geometric basket ``prod P_i^{w_i}`` (lognormal, closed form under the
+model), each asset's own vanilla option, and each asset's discounted terminal level.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from datetime import date
+from typing import ClassVar
+
+import numpy as np
+
+from fairpath import closed_form as cf
+from fairpath.errors import InputError
+from fairpath.market import Market, integrate_vol_product
+from fairpath.products.base import ControlVariate, PathSet, Product
+from fairpath.products.vanilla import RIGHTS
+
+COMBINES = ("worst", "best", "average")
+
+
+@dataclass(frozen=True, slots=True)
+class Basket(Product):
+    """Option on a basket of performances.
+
+    Examples
+    --------
+    >>> from datetime import date
+    >>> Basket(assets=("NORDA", "KELPA"), combine="worst", right="put", strike_level=1.0,
+    ...        expiry=date(2027, 12, 1), notional=1000.0).weights
+    (0.5, 0.5)
+    """
+
+    kind: ClassVar[str] = "basket"
+
+    assets: tuple[str, ...] = field(kw_only=True)
+    combine: str = field(kw_only=True)
+    right: str = field(kw_only=True)
+    strike_level: float = field(kw_only=True)
+    expiry: date = field(kw_only=True)
+    weights: tuple[float, ...] | None = field(default=None, kw_only=True)
+    notional: float = field(default=1.0, kw_only=True)
+
+    def __post_init__(self):
+        assets = tuple(self.assets)
+        object.__setattr__(self, "assets", assets)
+        if not assets or not all(isinstance(a, str) for a in assets):
+            raise InputError("must be a non-empty list of asset names", key="assets")
+        if len(set(assets)) != len(assets):
+            raise InputError(f"an asset is listed twice in {list(assets)}", key="assets")
+        if self.combine not in COMBINES:
+            raise InputError(f"must be one of {', '.join(COMBINES)}, got {self.combine!r}",
+                             key="combine")
+        if self.right not in RIGHTS:
+            raise InputError(f"must be 'call' or 'put', got {self.right!r}", key="right")
+        if not (math.isfinite(self.strike_level) and self.strike_level >= 0):
+            raise InputError(f"must be a non-negative fraction, got {self.strike_level}",
+                             key="strike_level")
+        if not math.isfinite(self.notional):
+            raise InputError(f"must be a finite number, got {self.notional}", key="notional")
+        if self.weights is None:
+            w = tuple(1.0 / len(assets) for _ in assets)
+        else:
+            if self.combine != "average":
+                raise InputError(f"weights apply to combine = \"average\" only, not "
+                                 f"{self.combine!r}", key="weights")
+            w = tuple(float(x) for x in self.weights)
+            if len(w) != len(assets):
+                raise InputError(f"{len(w)} weights for {len(assets)} assets", key="weights")
+            if any(not (math.isfinite(x) and x >= 0) for x in w):
+                raise InputError(f"weights must be non-negative numbers, got {list(w)}",
+                                 key="weights")
+            if abs(sum(w) - 1.0) > 1e-9:
+                raise InputError(f"weights must sum to 1, they sum to {sum(w):.10g}",
+                                 key="weights")
+        object.__setattr__(self, "weights", w)
+
+    @classmethod
+    def from_table(cls, tab) -> dict:
+        assets = tab.list("assets")
+        for i, a in enumerate(assets):
+            if not isinstance(a, str):
+                raise tab.error(f"assets[{i}]", f"expected an asset name, got {a!r}")
+        weights = tab.list("weights", None)
+        if weights is not None:
+            weights = tuple(tab.check_number(f"weights[{i}]", x, nonnegative=True)
+                            for i, x in enumerate(weights))
+        notional = tab.number("notional", 1.0)
+        quantity = tab.number("quantity", 1.0)
+        return dict(assets=tuple(assets), combine=tab.string("combine", choices=COMBINES),
+                    right=tab.string("right", choices=RIGHTS),
+                    strike_level=tab.number("strike_level", nonnegative=True),
+                    expiry=tab.date("expiry"), weights=weights, notional=notional * quantity,
+                    name=tab.string("name", None))
+
+    def underlyings(self) -> tuple[str, ...]:
+        return self.assets
+
+    def observation_dates(self) -> tuple[date, ...]:
+        return (self.expiry,)
+
+    def check(self, market: Market, source: str | None = None) -> None:
+        Product.check(self, market, source)
+        market.correlation_matrix(self.assets, source=source, key="assets")
+
+    def _option(self, level: np.ndarray) -> np.ndarray:
+        k = self.strike_level
+        return np.maximum(level - k, 0.0) if self.right == "call" else np.maximum(k - level, 0.0)
+
+    def performances(self, ps: PathSet) -> np.ndarray:
+        return ps.levels[:, :, -1] / ps.spots
+
+    def payoff(self, paths: PathSet) -> np.ndarray:
+        perf = self.performances(paths)
+        if self.combine == "worst":
+            level = perf.min(axis=1)
+        elif self.combine == "best":
+            level = perf.max(axis=1)
+        else:
+            level = perf @ np.asarray(self.weights)
+        return self._option(level) * (paths.df(self.expiry) * self.notional)
+
+    # -- controls ------------------------------------------------------------------------
+    def _geometric(self, ps: PathSet) -> np.ndarray:
+        perf = self.performances(ps)
+        g = np.exp(np.log(perf) @ np.asarray(self.weights))
+        return self._option(g) * ps.df(self.expiry)
+
+    def geometric_value(self, market: Market) -> float:
+        """Exact value (unit notional) of the option on the geometric basket under the model."""
+        t = market.time(self.expiry)
+        w = np.asarray(self.weights)
+        corr = market.correlation_matrix(self.assets)
+        assets = [market.asset(n) for n in self.assets]
+        n = len(assets)
+        cov = np.empty((n, n))
+        for i in range(n):
+            for j in range(n):
+                cov[i, j] = corr[i, j] * integrate_vol_product(assets[i].vol, assets[j].vol,
+                                                               0.0, t)
+        mean_log = sum(w[i] * (math.log(market.forward(a.name, t) / a.spot) - 0.5 * cov[i, i])
+                       for i, a in enumerate(assets))
+        var = float(w @ cov @ w)
+        df = float(market.discount.df(t))
+        return float(cf.black_lognormal(math.exp(mean_log + 0.5 * var), self.strike_level,
+                                        var, df, self.right))
+
+    def controls(self, market: Market) -> list[ControlVariate]:
+        t = market.time(self.expiry)
+        if t <= 0:
+            return []
+        out = [ControlVariate("geometric basket", self._geometric, self.geometric_value(market))]
+        df = float(market.discount.df(t))
+        r = float(market.discount.zero(t))
+        for i, name in enumerate(self.assets):
+            a = market.asset(name)
+            mean = float(cf.bsm_price(1.0, self.strike_level, t, r, a.dividend_yield,
+                                      float(a.vol.implied(t)), self.right))
+
+            def single(ps: PathSet, i=i, df=df):
+                return self._option(ps.levels[:, i, -1] / ps.spots[i]) * df
+            out.append(ControlVariate(f"{name} vanilla", single, mean))
+        return out + Product.controls(self, market)
+
+    def closed_form(self, market: Market) -> float | None:
+        if len(self.assets) == 1:
+            return self.geometric_value(market) * self.notional
+        return None
