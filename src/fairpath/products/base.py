@@ -133,6 +133,11 @@ class Product:
         """The product key holding its dates (for error messages)."""
         return "expiry"
 
+    def diagnostics(self, paths: PathSet) -> dict[str, np.ndarray]:
+        """Per-path quantities whose averages are reported beside the price (e.g. the
+        probability of an early redemption); none by default."""
+        return {}
+
     def notes(self, market: Market) -> tuple[str, ...]:
         """Remarks on the trade's state to show beside its price (e.g. a barrier already hit)."""
         return ()
