@@ -12,6 +12,7 @@ from fairpath.market import Asset, Correlation, DiscountCurve, Market, VolCurve,
 from fairpath.products import (
     REGISTRY,
     Asian,
+    Autocallable,
     Barrier,
     Basket,
     Digital,
@@ -23,8 +24,8 @@ from fairpath.products import (
 __version__ = "0.1.0"
 
 __all__ = [
-    "CAUTION", "REGISTRY", "Asian", "Asset", "Barrier", "Basket", "Correlation", "Digital",
-    "DiscountCurve", "European",
+    "CAUTION", "REGISTRY", "Asian", "Asset", "Autocallable", "Barrier", "Basket", "Correlation",
+    "Digital", "DiscountCurve", "European",
     "FairpathError", "FairpathWarning", "InputError", "Market", "PriceResult", "Product",
     "SamplingWarning", "VolCurve", "load_market", "load_product", "price",
 ]

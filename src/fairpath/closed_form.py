@@ -10,6 +10,7 @@ each other.
 * Lognormal building blocks: :func:`black_lognormal`, :func:`exchange_lognormal`.
 * Geometric-average Asians: :func:`geometric_asian_discrete`,
   :func:`geometric_asian_continuous`.
+* Gap options: :func:`gap_option` (the capital-at-risk leg of a note with a knock-in at maturity).
 * Single barriers: :func:`barrier_price` (continuous monitoring),
   :func:`discrete_barrier_price` and :func:`bgk_barrier` (continuity correction).
 
@@ -87,6 +88,7 @@ __all__ = [
     "discrete_barrier_price",
     "exchange_lognormal",
     "forward",
+    "gap_option",
     "geometric_asian_continuous",
     "geometric_asian_discrete",
 ]
@@ -1122,3 +1124,32 @@ def discrete_barrier_price(spot: ArrayLike, strike: ArrayLike, barrier: ArrayLik
     shifted = _bgk(x.barrier, x.sigma, x.T / m, direction)
     return _out(_barrier(x._replace(barrier=shifted), right, direction, effect,
                          breach_level=x.barrier))
+
+
+# --------------------------------------------------------------------------- gap options
+
+
+def gap_option(spot: ArrayLike, strike: ArrayLike, trigger: ArrayLike, T: ArrayLike,
+               r: ArrayLike, q: ArrayLike, sigma: ArrayLike, right: str) -> FloatOrArray:
+    """Gap option: pays ``S_T - K`` if ``S_T > H`` (call) or ``K - S_T`` if ``S_T < H`` (put).
+
+    The payoff may be negative (a call with ``H < K``). It is an asset-or-nothing minus ``K``
+    cash-or-nothing options struck at the trigger ``H``:
+    ``put = K e^{-rT} N(-d2) - S e^{-qT} N(-d1)``, ``call = S e^{-qT} N(d1) - K e^{-rT} N(d2)``,
+    with ``d1 = (ln(S/H) + (r - q + sigma^2/2) T) / (sigma sqrt(T))``, ``d2 = d1 - sigma sqrt(T)``
+    (Haug 2007 [H07], chapter 4, gap options). A maturity-only knock-in put at ``H`` with strike
+    ``K >= H``, ``(K - S_T) 1{S_T < H}``, is a gap put.
+
+    Examples
+    --------
+    >>> round(gap_option(100.0, 100.0, 100.0, 1.0, 0.05, 0.0, 0.2, "put"),  # = the vanilla put
+    ...       4)
+    5.5735
+    >>> round(gap_option(100.0, 100.0, 70.0, 1.0, 0.05, 0.0, 0.2, "put"), 4)
+    0.8851
+    """
+    phi = _phi(right, "gap_option")
+    cash = digital_price(spot, trigger, T, r, q, sigma, right)
+    asset = asset_or_nothing_price(spot, trigger, T, r, q, sigma, right)
+    K = _as_float_array(strike, "strike", "gap_option")
+    return _out(phi * (np.asarray(asset) - K * np.asarray(cash)))

@@ -236,10 +236,12 @@ class Simulation:
         return out
 
     @staticmethod
-    def sample_values(product: Product, controls: list[ControlVariate], ps: PathSet
-                      ) -> np.ndarray:
+    def sample_values(product: Product, controls: list[ControlVariate], ps: PathSet,
+                      payoff: np.ndarray | None = None) -> np.ndarray:
         """(paths, 1 + controls): discounted payoff, then each control's value."""
-        cols = [np.asarray(product.payoff(ps), dtype=float)]
+        if payoff is None:
+            payoff = product.payoff(ps)
+        cols = [np.asarray(payoff, dtype=float)]
         cols.extend(np.asarray(c.values(ps), dtype=float) for c in controls)
         v = np.stack([np.broadcast_to(c, (ps.n,)) for c in cols], axis=1)
         if not np.all(np.isfinite(v)):
@@ -270,8 +272,9 @@ class Simulation:
             values, diags = [], []
             for prod, ctl, ps in zip(self.products, self.controls, self.pathsets(x),
                                      strict=True):
-                values.append(self.sample_values(prod, ctl, ps))
-                diags.append(prod.diagnostics(ps))
+                pay, diag = prod.evaluate(ps)
+                values.append(self.sample_values(prod, ctl, ps, pay))
+                diags.append(diag)
             off = 0
             for b in chunk:
                 moments, dsum = [], []

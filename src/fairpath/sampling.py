@@ -129,17 +129,24 @@ class BrownianBridge:
         increment over step ``k``: ``(W(t_{k+1}) - W(t_k)) / sqrt(t_{k+1} - t_k)``.
         """
         m, a, n = z.shape
-        w = np.zeros((m, a, n + 1))
+        rows = self.increments_rows(np.ascontiguousarray(z.transpose(2, 0, 1)).reshape(n, m * a))
+        return np.ascontiguousarray(rows.reshape(n, m, a).transpose(1, 2, 0))
+
+    def increments_rows(self, zt: np.ndarray) -> np.ndarray:
+        """The same on time-major rows: ``zt[j]`` holds construction step ``j`` for every path."""
+        n = zt.shape[0]
+        w = np.empty((n + 1, zt.shape[1]))
+        w[0] = 0.0
         for j, i in enumerate(self.order):
             lo, hi = self.left[j], self.right[j]
-            val = z[:, :, j] * self.sd[j]
+            row = w[i]
+            np.multiply(zt[j], self.sd[j], out=row)
             if lo:
-                val += self.wl[j] * w[:, :, lo]
+                row += self.wl[j] * w[lo]
             if hi > 0:
-                val += self.wr[j] * w[:, :, hi]
-            w[:, :, i] = val
-        out = np.diff(w, axis=2)
-        out /= np.sqrt(self.dt)
+                row += self.wr[j] * w[hi]
+        out = np.subtract(w[1:], w[:-1], out=zt)
+        out /= np.sqrt(self.dt)[:, None]
         return out
 
 
@@ -285,11 +292,12 @@ class SobolSampler(Sampler):
             warnings.simplefilter("ignore", UserWarning)  # we issue our own balance warning
             u = eng.random(draws)
         self._engines[(block.stream, dim)] = (eng, first + draws)
-        z = to_normal(u)
         # coordinate c = j * n_assets + a: bridge step j of asset a (every asset's coarse path
         # comes before any asset's finer points)
-        z = z.reshape(draws, steps, n_assets).transpose(0, 2, 1)
-        z = self._bridge(times).increments(z) if steps > 1 else np.ascontiguousarray(z)
+        zt = to_normal(np.ascontiguousarray(u.T)).reshape(steps, n_assets * draws)
+        if steps > 1:
+            zt = self._bridge(times).increments_rows(zt)
+        z = np.ascontiguousarray(zt.reshape(steps, n_assets, draws).transpose(2, 1, 0))
         return self._mirror(z, block.size) if self.antithetic else z
 
 

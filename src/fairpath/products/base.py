@@ -133,6 +133,10 @@ class Product:
         """The product key holding its dates (for error messages)."""
         return "expiry"
 
+    def evaluate(self, paths: PathSet) -> tuple[np.ndarray, dict[str, np.ndarray]]:
+        """Payoff and diagnostics together (override when they share work)."""
+        return self.payoff(paths), self.diagnostics(paths)
+
     def diagnostics(self, paths: PathSet) -> dict[str, np.ndarray]:
         """Per-path quantities whose averages are reported beside the price (e.g. the
         probability of an early redemption); none by default."""
