@@ -7,7 +7,7 @@
 """
 
 from fairpath.errors import FairpathError, FairpathWarning, InputError, SamplingWarning
-from fairpath.estimate import CAUTION, PriceResult, price
+from fairpath.estimate import CAUTION, PriceResult, price, price_many
 from fairpath.market import Asset, Correlation, DiscountCurve, Market, VolCurve, load_market
 from fairpath.products import (
     REGISTRY,
@@ -20,6 +20,7 @@ from fairpath.products import (
     Product,
     load_product,
 )
+from fairpath.solve import SolveResult, solve
 
 __version__ = "0.1.0"
 
@@ -27,5 +28,6 @@ __all__ = [
     "CAUTION", "REGISTRY", "Asian", "Asset", "Autocallable", "Barrier", "Basket", "Correlation",
     "Digital", "DiscountCurve", "European",
     "FairpathError", "FairpathWarning", "InputError", "Market", "PriceResult", "Product",
-    "SamplingWarning", "VolCurve", "load_market", "load_product", "price",
+    "SamplingWarning", "SolveResult", "VolCurve", "load_market", "load_product", "price",
+    "price_many", "solve",
 ]

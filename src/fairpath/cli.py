@@ -1,4 +1,4 @@
-"""Command line: ``fairpath price | validate | demo``.
+"""Command line: ``fairpath price | solve | validate | demo``.
 
 Exit status: 0 on success, 2 on bad input (one line on stderr naming the file, the key and the
 problem), 1 on an internal error.
@@ -45,6 +45,16 @@ def _positive_float(text: str) -> float:
     return v
 
 
+def _finite_float(text: str) -> float:
+    try:
+        v = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a number, got {text!r}") from None
+    if v != v or v in (float("inf"), float("-inf")):
+        raise argparse.ArgumentTypeError(f"expected a finite number, got {text!r}")
+    return v
+
+
 def _seed(text: str) -> int:
     try:
         v = int(text)
@@ -84,6 +94,15 @@ def build_parser() -> argparse.ArgumentParser:
                    help="cap for --target-stderr (default %(default)s)")
     p.add_argument("--json", action="store_true", help="print one JSON object")
 
+    s = sub.add_parser("solve", help="the value of a product key that makes the price a target")
+    s.add_argument("product", help="product TOML file")
+    s.add_argument("--market", required=True, help="market TOML file")
+    s.add_argument("--for", dest="key", required=True,
+                   help="numeric product key to solve for (coupon, strike, barrier, ...)")
+    s.add_argument("--target", type=_finite_float, required=True, help="target price")
+    _add_mc_options(s)
+    s.add_argument("--json", action="store_true", help="print one JSON object")
+
     v = sub.add_parser("validate", help="Monte Carlo against the closed forms, with z-scores")
     v.add_argument("--json", action="store_true")
 
@@ -105,6 +124,8 @@ def main(argv: list[str] | None = None) -> int:
     try:
         if args.command == "price":
             return _price(args)
+        if args.command == "solve":
+            return _solve(args)
         if args.command == "validate":
             return _validate(args)
         if args.command == "demo":
@@ -129,6 +150,21 @@ def _price(args) -> int:
                          control=not args.no_control, target_stderr=args.target_stderr,
                          max_paths=args.max_paths, replicates=args.replicates,
                          source=args.product)
+    if args.json:
+        print(res.to_json())
+    else:
+        print(res)
+        print(f"\n{estimate.CAUTION}")
+    return 0
+
+
+def _solve(args) -> int:
+    from fairpath.solve import solve
+
+    market = load_market(args.market)
+    product = load_product(args.product)
+    res = solve(product, market, args.key, args.target, paths=args.paths, sampler=args.sampler,
+                seed=args.seed, replicates=args.replicates, source=args.product)
     if args.json:
         print(res.to_json())
     else:

@@ -4,9 +4,10 @@ Each case prices a product by Monte Carlo at a fixed seed and compares it with i
 closed form: Black-Scholes-Merton for calls and puts, the cash-or-nothing formula for digitals,
 the discrete geometric-average formula for geometric Asians, Reiner-Rubinstein for continuously
 monitored barriers (with rebate) and the Broadie-Glasserman-Kou shift of it for discretely
-monitored ones. ``z = (MC - closed form) / stderr``. A case fails when
-``|MC - closed form| > Z_LIMIT * stderr + allowance * |closed form|`` (the allowance is zero for
-exact references).
+monitored ones, and a strip of coupons plus a zero-coupon bond minus gap puts for a note that
+is never called and knocks in at maturity only. ``z = (MC - closed form) / stderr``. A case
+fails when ``|MC - closed form| > Z_LIMIT * stderr + allowance * |closed form|`` (the
+allowance is zero for exact references).
 """
 
 from __future__ import annotations
@@ -14,9 +15,12 @@ from __future__ import annotations
 from dataclasses import dataclass
 from datetime import date
 
+from fairpath import closed_form as cf
+from fairpath.dates import schedule_dates
 from fairpath.estimate import price
 from fairpath.market import Asset, DiscountCurve, Market, VolCurve
 from fairpath.products.asian import Asian
+from fairpath.products.autocall import Autocallable
 from fairpath.products.barrier import Barrier
 from fairpath.products.base import Product
 from fairpath.products.basket import Basket
@@ -41,6 +45,8 @@ class Case:
     control: bool = True
     paths: int = 65536
     seed: int = 11
+    #: an explicit reference value, when it is not the product's own closed form
+    reference: float | None = None
     #: relative bias allowed on top of Z_LIMIT standard errors (approximate references only)
     allowance: float = 0.0
 
@@ -105,7 +111,35 @@ def default_cases() -> list[Case]:
              antithetic=True),
     ]
     cases += path_dependent_cases()
+    cases += note_cases()
     return cases
+
+
+def fixed_coupon_note_reference(note: Autocallable, market: Market) -> float:
+    """A note that is never called, always pays its coupon and knocks in at maturity only:
+    a strip of discounted coupons, plus a zero-coupon bond, minus ``notional / (k S0)`` gap puts
+    struck at ``k S0`` with trigger ``min(barrier, k) S0`` (``k`` the strike level).
+    """
+    a = market.asset(note.assets[0])
+    dates = [d for d in note.observations if d > market.valuation_date]
+    coupons = sum(note.coupon * note.notional * float(market.df(d)) for d in dates)
+    t = market.time(note.maturity)
+    r = float(market.discount.zero(t))
+    sigma = float(a.vol.implied(t))
+    k = note.strike_level * a.spot
+    trigger = min(note.protection_barrier, note.strike_level) * a.spot
+    put = cf.gap_option(a.spot, k, trigger, t, r, a.dividend_yield, sigma, "put")
+    return coupons + note.notional * float(market.df(note.maturity)) - note.notional / k * put
+
+
+def note_cases() -> list[Case]:
+    m = flat_market()
+    obs = schedule_dates({"first": date(2027, 6, 1), "every": "6M", "count": 6})
+    never_called = Autocallable(assets=("NORDA",), observations=obs, notional=1000.0,
+                                autocall_level=1e6, coupon=0.03, coupon_barrier=0.0,
+                                protection_barrier=0.6, protection_monitoring="final")
+    return [Case("never-called note, final knock-in (gap put)", never_called, m, "sobol",
+                 seed=31, reference=fixed_coupon_note_reference(never_called, m))]
 
 
 def path_dependent_cases() -> list[Case]:
@@ -158,7 +192,7 @@ def run(cases: list[Case] | None = None) -> list[CaseResult]:
     for c in cases or default_cases():
         r = price(c.product, c.market, paths=c.paths, sampler=c.sampler, seed=c.seed,
                   antithetic=c.antithetic, control=c.control)
-        ref = c.product.closed_form(c.market)
+        ref = c.reference if c.reference is not None else c.product.closed_form(c.market)
         z = (r.price - ref) / r.stderr if r.stderr > 0 else (0.0 if r.price == ref else
                                                               float("inf"))
         out.append(CaseResult(c.name, c.sampler, r.price, ref, r.stderr, z, c.allowance))
