@@ -308,11 +308,13 @@ class Estimate:
 
 
 def combine(moments: dict[Block, Moments], blocks: list[Block], controls: list[ControlVariate],
-            sampler: Sampler) -> Estimate:
+            sampler: Sampler, force: tuple[str, ...] | None = None) -> Estimate:
     """Price, standard error and interval from the blocks' moments (see the module notes).
 
     Candidate control sets are: none, all usable controls together, and each usable control
-    alone; the set with the smallest estimated variance is kept.
+    alone; the set with the smallest estimated variance is kept. ``force`` imposes a set by
+    name instead (those that are usable), so that estimates of products whose payoffs are
+    linear in a term stay exactly linear in it.
     """
     pooled = merge_all([moments[b] for b in blocks])
     cov = pooled.cov()
@@ -347,21 +349,23 @@ def combine(moments: dict[Block, Moments], blocks: list[Block], controls: list[C
         return price, max(float(cov[0, 0] - cov[idx, 0] @ coef), 0.0) / pooled.n
 
     candidates: list[list[int]] = [[]]
-    if usable:
+    if force is not None:
+        candidates = [[i for i in usable if controls[i].name in force]]
+    elif usable:
         candidates.append(usable)
         if len(usable) > 1:
             candidates.extend([i] for i in usable)
     results = [estimate(c) for c in candidates]
     best = min(range(len(candidates)), key=lambda k: (results[k][1], len(candidates[k])))
     price, var = results[best]
-    var_raw = results[0][1]
+    var_raw = estimate([])[1]
     chosen = candidates[best]
     vrf = None
     if chosen:
         vrf = var_raw / var if var > 0 else None
         if var == 0:
             notes.append("the control variate explains the payoff exactly (zero variance)")
-    elif usable:
+    elif usable and force is None:
         notes.append("control variates switched off: none reduced the variance")
     se = math.sqrt(max(var, 0.0))
     return Estimate(price, se, (price - quant * se, price + quant * se), pooled.n,
@@ -400,7 +404,8 @@ def price(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
     Examples
     --------
     >>> import fairpath as fp
-    >>>     >>> m = fp.Market(date(2026, 12, 1), "EUR", fp.DiscountCurve.flat(0.05),
+    >>> from datetime import date
+    >>> m = fp.Market(date(2026, 12, 1), "EUR", fp.DiscountCurve.flat(0.05),
     ...               (fp.Asset("NORDA", 100.0, fp.VolCurve.flat(0.2)),))
     >>> call = fp.European(asset="NORDA", right="call", strike=100.0, expiry=date(2027, 12, 1))
     >>> r = fp.price(call, m, paths=4096, seed=1)
@@ -417,11 +422,12 @@ def price_many(products: list[Product], market: Market, *, paths: int = DEFAULT_
                sampler: str = "sobol", seed: int | None = None, antithetic: bool = False,
                control: bool = True, target_stderr: float | None = None,
                max_paths: int = DEFAULT_MAX_PATHS, replicates: int = DEFAULT_REPLICATES,
-               chunk_paths: int | None = None, source: str | None = None
-               ) -> list[PriceResult]:
+               chunk_paths: int | None = None, source: str | None = None,
+               control_set: tuple[str, ...] | None = None) -> list[PriceResult]:
     """Price several products on the same assets with the same random numbers.
 
-    Arguments as for :func:`price`; ``target_stderr`` applies to the first product. The
+    Arguments as for :func:`price`; ``target_stderr`` applies to the first product;
+    ``control_set`` imposes the control variates by name on every product. The
     products share one simulation (the union of their dates), so differences between their
     prices carry far less noise than independent runs.
     """
@@ -433,8 +439,10 @@ def price_many(products: list[Product], market: Market, *, paths: int = DEFAULT_
             max_paths, int) or max_paths < paths):
         raise InputError(f"must be an integer at least the path count, got {max_paths!r}",
                          key="max_paths")
+    if source is None:
+        source = products[0].source
     for p in products:
-        p.check(market, source)
+        p.check(market, source or p.source)
     controls = [p.controls(market) if control else [] for p in products]
     sim = Simulation(products, market, smp, controls, source)
     notes: list[str] = []
@@ -466,7 +474,8 @@ def price_many(products: list[Product], market: Market, *, paths: int = DEFAULT_
         todo = [b for b in blocks if b not in cache]
         if todo:
             cache.update(sim.run_blocks(todo, chunk_paths))
-        first = combine({b: cache[b].moments[0] for b in blocks}, blocks, controls[0], smp)
+        first = combine({b: cache[b].moments[0] for b in blocks}, blocks, controls[0], smp,
+                        control_set)
         if target_stderr is None or first.stderr <= target_stderr:
             break
         if n * 2 > max_paths:
@@ -478,7 +487,8 @@ def price_many(products: list[Product], market: Market, *, paths: int = DEFAULT_
     total = sum(b.size for b in blocks)
     out = []
     for j, p in enumerate(products):
-        est = combine({b: cache[b].moments[j] for b in blocks}, blocks, controls[j], smp)
+        est = combine({b: cache[b].moments[j] for b in blocks}, blocks, controls[j], smp,
+                      control_set)
         diag: dict[str, float] = {}
         for b in blocks:
             for k, v in cache[b].diagnostics[j].items():

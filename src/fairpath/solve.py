@@ -4,7 +4,8 @@ Every trial reuses the same random numbers (the same seed, sampler and path coun
 is a deterministic, smooth-as-the-payoff function of the key and root finding is well posed.
 
 * Keys the price is linear in (``coupon`` of an autocallable): the prices at 0 and 1 come from
-  one simulation (:func:`fairpath.estimate.price_many`) and the root is exact.
+  one simulation (:func:`fairpath.estimate.price_many`) with one imposed control-variate set,
+  so the estimate is exactly linear and the root exact.
 * Other numeric keys: a bracket is grown geometrically from the current value until the price
   crosses the target, then :func:`scipy.optimize.brentq` finds the root. If the price never
   reaches the target, the error states the range of prices seen.
@@ -85,6 +86,7 @@ def solve(product: Product, market: Market, key: str, target: float, *,
     >>> abs(s.value - 100.0) < 0.5
     True
     """
+    source = source or product.source
     keys = numeric_keys(product)
     if key not in keys:
         raise InputError(f"{key!r} is not a numeric key of this {product.kind}; numeric keys: "
@@ -98,7 +100,13 @@ def solve(product: Product, market: Market, key: str, target: float, *,
         return dataclasses.replace(product, **{key: x})
 
     if key in LINEAR_KEYS.get(product.kind, ()):
-        lo, hi = price_many([with_value(0.0), with_value(1.0)], market, **settings)
+        # the controlled estimate is linear in the coupon when every run uses the same control
+        # set (the regression coefficient is then linear too): take the set the zero-coupon
+        # run prefers and impose it on the end points and on the repricing
+        first = price(with_value(0.0), market, **settings)
+        forced = first.controls
+        lo, hi = price_many([with_value(0.0), with_value(1.0)], market, control_set=forced,
+                            **settings)
         slope = hi.price - lo.price
         if slope == 0:
             raise InputError(f"the price does not depend on {key} (always {lo.price:.6g})",
@@ -108,9 +116,9 @@ def solve(product: Product, market: Market, key: str, target: float, *,
             raise InputError(f"no {key} >= 0 reaches {target:g}: the price is {lo.price:.6g} at "
                              f"{key} = 0 and rises by {slope:.6g} per 1.00 of {key}",
                              source=source, key="--target")
-        res = price(with_value(x), market, **settings)
+        res = price_many([with_value(x)], market, control_set=forced, **settings)[0]
         return SolveResult(key, float(x), res.price, res.stderr, float(target),
-                           "linear (exact from one simulation)", 2, res)
+                           "linear in the coupon (exact on one set of paths)", 3, res)
 
     seen: dict[float, float] = {}
 

@@ -108,6 +108,12 @@ class Barrier(OneAssetAtExpiry):
                   rebate=tab.number("rebate", 0.0, nonnegative=True))
         return kw
 
+    def check(self, market: Market, source: str | None = None) -> None:
+        market.asset(self.asset, source=source, key="asset")
+        if self.expiry < market.valuation_date:
+            raise InputError(f"{self.expiry} is before the valuation date "
+                             f"{market.valuation_date}", source=source, key="expiry")
+
     # -- state -----------------------------------------------------------------------------
     def breached(self, spot: float) -> bool:
         """Is ``spot`` at or beyond the barrier?"""

@@ -93,6 +93,8 @@ class Product:
     kind: ClassVar[str] = ""
 
     name: str | None = field(default=None, kw_only=True)
+    #: the file the product was read from (named in errors found when it is priced)
+    source: str | None = field(default=None, kw_only=True, compare=False, repr=False)
 
     def __init_subclass__(cls, **kwargs):
         super(Product, cls).__init_subclass__(**kwargs)

@@ -27,6 +27,6 @@ def product_from_dict(data: dict, *, source: str | None = None) -> Product:
     kwargs = cls.from_table(tab)
     tab.finish()
     try:
-        return cls(**kwargs)
+        return cls(**kwargs, source=source)
     except InputError as exc:
         raise InputError(exc.problem, source=source, key=exc.key) from None
