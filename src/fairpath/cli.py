@@ -25,45 +25,23 @@ class _Parser(argparse.ArgumentParser):
         self.exit(2, f"{self.prog}: error: {message}\n")
 
 
-def _positive_int(text: str) -> int:
-    try:
-        v = int(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"expected a positive integer, got {text!r}") from None
-    if v < 1:
-        raise argparse.ArgumentTypeError(f"expected a positive integer, got {text!r}")
-    return v
+def _arg(kind, ok, what: str):
+    """An argparse type: parse with ``kind``, accept when ``ok(value)``, else say ``what``."""
+    def parse(text: str):
+        try:
+            v = kind(text)
+        except ValueError:
+            v = None
+        if v is None or not ok(v):
+            raise argparse.ArgumentTypeError(f"expected {what}, got {text!r}")
+        return v
+    return parse
 
 
-def _positive_float(text: str) -> float:
-    try:
-        v = float(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"expected a positive number, got {text!r}") from None
-    if not v > 0 or v == float("inf"):
-        raise argparse.ArgumentTypeError(f"expected a positive number, got {text!r}")
-    return v
-
-
-def _finite_float(text: str) -> float:
-    try:
-        v = float(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"expected a number, got {text!r}") from None
-    if v != v or v in (float("inf"), float("-inf")):
-        raise argparse.ArgumentTypeError(f"expected a finite number, got {text!r}")
-    return v
-
-
-def _seed(text: str) -> int:
-    try:
-        v = int(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"expected a non-negative integer, got {text!r}") \
-            from None
-    if v < 0:
-        raise argparse.ArgumentTypeError(f"expected a non-negative integer, got {text!r}")
-    return v
+_positive_int = _arg(int, lambda v: v >= 1, "a positive integer")
+_seed = _arg(int, lambda v: v >= 0, "a non-negative integer")
+_positive_float = _arg(float, lambda v: 0 < v < float("inf"), "a positive number")
+_finite_float = _arg(float, lambda v: abs(v) < float("inf"), "a finite number")
 
 
 def _add_mc_options(p: argparse.ArgumentParser) -> None:

@@ -39,7 +39,7 @@ import numpy as np
 from fairpath.dates import schedule_dates
 from fairpath.errors import FairpathWarning, InputError
 from fairpath.market import Market
-from fairpath.products.base import PathSet, Product
+from fairpath.products.base import PathSet, Product, asset_list, read_asset_names
 
 MONITORINGS = ("final", "daily", "continuous")
 
@@ -77,7 +77,7 @@ class Autocallable(Product):
     knocked_in: bool = field(default=False, kw_only=True)
 
     def __post_init__(self):
-        assets = tuple(self.assets)
+        assets = asset_list(self.assets)
         object.__setattr__(self, "assets", assets)
         obs = tuple(self.observations)
         object.__setattr__(self, "observations", obs)
@@ -85,10 +85,6 @@ class Autocallable(Product):
         if isinstance(init, dict):
             init = tuple(init.items())
         object.__setattr__(self, "initial_levels", tuple((str(k), float(v)) for k, v in init))
-        if not assets or not all(isinstance(a, str) for a in assets):
-            raise InputError("must be a non-empty list of asset names", key="assets")
-        if len(set(assets)) != len(assets):
-            raise InputError(f"an asset is listed twice in {list(assets)}", key="assets")
         if not obs:
             raise InputError("must hold at least one date", key="observations")
         if any(b <= a for a, b in zip(obs, obs[1:], strict=False)):
@@ -147,10 +143,7 @@ class Autocallable(Product):
 
     @classmethod
     def from_table(cls, tab) -> dict:
-        assets = tab.list("assets")
-        for i, a in enumerate(assets):
-            if not isinstance(a, str):
-                raise tab.error(f"assets[{i}]", f"expected an asset name, got {a!r}")
+        assets = read_asset_names(tab)
         init = tab.table("initial_levels", None)
         levels = ()
         if init is not None:

@@ -178,6 +178,25 @@ class Product:
         return self.name or self.kind
 
 
+def asset_list(assets) -> tuple[str, ...]:
+    """A product's ``assets`` as a tuple of distinct names (InputError otherwise)."""
+    assets = tuple(assets)
+    if not assets or not all(isinstance(a, str) for a in assets):
+        raise InputError("must be a non-empty list of asset names", key="assets")
+    if len(set(assets)) != len(assets):
+        raise InputError(f"an asset is listed twice in {list(assets)}", key="assets")
+    return assets
+
+
+def read_asset_names(tab) -> tuple[str, ...]:
+    """The ``assets`` list of a product file."""
+    assets = tab.list("assets")
+    for i, a in enumerate(assets):
+        if not isinstance(a, str):
+            raise tab.error(f"assets[{i}]", f"expected an asset name, got {a!r}")
+    return tuple(assets)
+
+
 def product_class(kind: object, *, source: str | None = None) -> type[Product]:
     """The class registered for a ``kind``; an unknown name lists the known ones."""
     if not isinstance(kind, str) or kind not in REGISTRY:

@@ -23,7 +23,7 @@ import numpy as np
 from fairpath import closed_form as cf
 from fairpath.errors import InputError
 from fairpath.market import Market, integrate_vol_product
-from fairpath.products.base import ControlVariate, PathSet, Product
+from fairpath.products.base import ControlVariate, PathSet, Product, asset_list, read_asset_names
 from fairpath.products.vanilla import RIGHTS
 
 COMBINES = ("worst", "best", "average")
@@ -52,12 +52,8 @@ class Basket(Product):
     notional: float = field(default=1.0, kw_only=True)
 
     def __post_init__(self):
-        assets = tuple(self.assets)
+        assets = asset_list(self.assets)
         object.__setattr__(self, "assets", assets)
-        if not assets or not all(isinstance(a, str) for a in assets):
-            raise InputError("must be a non-empty list of asset names", key="assets")
-        if len(set(assets)) != len(assets):
-            raise InputError(f"an asset is listed twice in {list(assets)}", key="assets")
         if self.combine not in COMBINES:
             raise InputError(f"must be one of {', '.join(COMBINES)}, got {self.combine!r}",
                              key="combine")
@@ -87,10 +83,7 @@ class Basket(Product):
 
     @classmethod
     def from_table(cls, tab) -> dict:
-        assets = tab.list("assets")
-        for i, a in enumerate(assets):
-            if not isinstance(a, str):
-                raise tab.error(f"assets[{i}]", f"expected an asset name, got {a!r}")
+        assets = read_asset_names(tab)
         weights = tab.list("weights", None)
         if weights is not None:
             weights = tuple(tab.check_number(f"weights[{i}]", x, nonnegative=True)
