@@ -8,6 +8,7 @@
 
 from fairpath.errors import FairpathError, FairpathWarning, InputError, SamplingWarning
 from fairpath.estimate import CAUTION, PriceResult, price, price_many
+from fairpath.greeks import GreeksResult, greeks
 from fairpath.market import Asset, Correlation, DiscountCurve, Market, VolCurve, load_market
 from fairpath.products import (
     REGISTRY,
@@ -27,7 +28,8 @@ __version__ = "0.1.0"
 __all__ = [
     "CAUTION", "REGISTRY", "Asian", "Asset", "Autocallable", "Barrier", "Basket", "Correlation",
     "Digital", "DiscountCurve", "European",
-    "FairpathError", "FairpathWarning", "InputError", "Market", "PriceResult", "Product",
+    "FairpathError", "FairpathWarning", "GreeksResult", "InputError", "Market", "PriceResult",
+    "Product",
     "SamplingWarning", "SolveResult", "VolCurve", "load_market", "load_product", "price",
-    "price_many", "solve",
+    "greeks", "price_many", "solve",
 ]

@@ -1,4 +1,4 @@
-"""Command line: ``fairpath price | solve | validate | demo``.
+"""Command line: ``fairpath price | greeks | solve | validate | demo``.
 
 Exit status: 0 on success, 2 on bad input (one line on stderr naming the file, the key and the
 problem), 1 on an internal error.
@@ -72,6 +72,15 @@ def build_parser() -> argparse.ArgumentParser:
                    help="cap for --target-stderr (default %(default)s)")
     p.add_argument("--json", action="store_true", help="print one JSON object")
 
+    g = sub.add_parser("greeks", help="delta, gamma, vega, rho, theta with standard errors")
+    g.add_argument("product", help="product TOML file")
+    g.add_argument("--market", required=True, help="market TOML file")
+    _add_mc_options(g)
+    g.add_argument("--method", choices=("bump", "pathwise", "auto"), default="auto",
+                   help="bump-and-revalue on common random numbers, pathwise, or the best "
+                        "available per Greek (default %(default)s)")
+    g.add_argument("--json", action="store_true", help="print one JSON object")
+
     s = sub.add_parser("solve", help="the value of a product key that makes the price a target")
     s.add_argument("product", help="product TOML file")
     s.add_argument("--market", required=True, help="market TOML file")
@@ -102,6 +111,8 @@ def main(argv: list[str] | None = None) -> int:
     try:
         if args.command == "price":
             return _price(args)
+        if args.command == "greeks":
+            return _greeks(args)
         if args.command == "solve":
             return _solve(args)
         if args.command == "validate":
@@ -128,6 +139,21 @@ def _price(args) -> int:
                          control=not args.no_control, target_stderr=args.target_stderr,
                          max_paths=args.max_paths, replicates=args.replicates,
                          source=args.product)
+    if args.json:
+        print(res.to_json())
+    else:
+        print(res)
+        print(f"\n{estimate.CAUTION}")
+    return 0
+
+
+def _greeks(args) -> int:
+    from fairpath.greeks import greeks
+
+    market = load_market(args.market)
+    product = load_product(args.product)
+    res = greeks(product, market, paths=args.paths, sampler=args.sampler, seed=args.seed,
+                 method=args.method, replicates=args.replicates, source=args.product)
     if args.json:
         print(res.to_json())
     else:

@@ -29,7 +29,7 @@ from fairpath import closed_form as cf
 from fairpath.dates import schedule_dates
 from fairpath.errors import InputError
 from fairpath.market import Market
-from fairpath.products.base import ControlVariate, PathSet, Product
+from fairpath.products.base import ControlVariate, PathSet, Product, pathwise_from_gradient
 from fairpath.products.vanilla import RIGHTS
 
 AVERAGES = ("arithmetic", "geometric")
@@ -198,6 +198,22 @@ class Asian(Product):
         if self.average != "geometric":
             return None
         return self.geometric_value(market) * self.quantity
+
+    def has_pathwise(self, market: Market) -> bool:
+        return not self.floating and bool(self.future_fixings)
+
+    def pathwise(self, paths: PathSet) -> dict[str, np.ndarray]:
+        ps = paths
+        n = len(self.fixings)
+        cols = [ps.dates.index(d) for d in self.future_fixings]
+        fut = ps.levels[:, 0, cols]
+        geometric = self.average == "geometric"
+        avg = self._average(fut, geometric)
+        ind = (avg > self.strike) if self.right == "call" else -(avg < self.strike).astype(float)
+        da = (avg[:, None] / (n * fut)) if geometric else np.full_like(fut, 1.0 / n)
+        grad = np.zeros_like(ps.levels)
+        grad[:, 0, cols] = da * (ind * ps.df(self.expiry) * self.quantity)[:, None]
+        return pathwise_from_gradient(ps, grad)
 
     def notes(self, market: Market) -> tuple[str, ...]:
         if self.past_fixings:

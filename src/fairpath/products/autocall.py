@@ -28,6 +28,7 @@ protection barrier was already breached.
 
 from __future__ import annotations
 
+import dataclasses
 import math
 import warnings
 from dataclasses import dataclass, field
@@ -60,6 +61,7 @@ class Autocallable(Product):
     """
 
     kind: ClassVar[str] = "autocallable"
+    payoff_jumps: ClassVar[bool] = True
 
     assets: tuple[str, ...] = field(kw_only=True)
     observations: tuple[date, ...] = field(kw_only=True)
@@ -198,6 +200,13 @@ class Autocallable(Product):
             d = dict(self.initial_levels)
             return np.array([d[a] for a in self.assets])
         return np.array([market.asset(a).spot for a in self.assets])
+
+    def struck(self, market: Market) -> Autocallable:
+        """The same note with its initial levels fixed at today's spots (for bumps)."""
+        if self.initial_levels:
+            return self
+        return dataclasses.replace(self, initial_levels=tuple(
+            zip(self.assets, self.initial(market).tolist(), strict=True)))
 
     def check(self, market: Market, source: str | None = None) -> None:
         for a in self.assets:

@@ -62,6 +62,7 @@ class Barrier(OneAssetAtExpiry):
     """
 
     kind: ClassVar[str] = "barrier"
+    payoff_jumps: ClassVar[bool] = True
 
     barrier: float = field(kw_only=True)
     direction: str = field(kw_only=True)

@@ -139,6 +139,23 @@ class Product:
         """Payoff and diagnostics together (override when they share work)."""
         return self.payoff(paths), self.diagnostics(paths)
 
+    #: does the payoff jump as a function of the levels (digitals, triggers, discrete barriers)?
+    payoff_jumps: ClassVar[bool] = False
+
+    def has_pathwise(self, market: Market) -> bool:
+        """Does :meth:`pathwise` give estimators for this product on this market?"""
+        return False
+
+    def pathwise(self, paths: PathSet) -> dict[str, np.ndarray]:
+        """Per-path derivatives of the discounted payoff: keys ``"delta NAME"`` and, where the
+        vol is flat, ``"vega NAME"`` (see :func:`level_sensitivities`)."""
+        return {}
+
+    def struck(self, market: Market) -> Product:
+        """The product with every level that is fixed from today's spots fixed explicitly, so
+        a spot bump moves the asset and not the trade's terms (e.g. a basket's initial levels)."""
+        return self
+
     def diagnostics(self, paths: PathSet) -> dict[str, np.ndarray]:
         """Per-path quantities whose averages are reported beside the price (e.g. the
         probability of an early redemption); none by default."""
@@ -176,6 +193,35 @@ class Product:
 
     def label(self) -> str:
         return self.name or self.kind
+
+
+def level_sensitivities(ps: PathSet) -> tuple[np.ndarray, np.ndarray | None]:
+    """Derivatives of the levels on the observation dates, shape (paths, assets, dates).
+
+    ``dS_t/dS_0 = S_t / S_0`` (any vol term structure); when every asset's vol is flat,
+    ``dS_t/dsigma = S_t (W_t - sigma t)`` with ``W_t = (log S_t - log F_t + sigma^2 t / 2) / sigma``
+    recovered from the path (else None).
+    """
+    d_spot = ps.levels / ps.spots[None, :, None]
+    vols = [ps.market.asset(n).vol for n in ps.names]
+    if not all(v.is_flat and v.vols[0] > 0 for v in vols):
+        return d_spot, None
+    t = np.array([max(ps.market.time(d), 0.0) for d in ps.dates])
+    sig = np.array([v.vols[0] for v in vols])[None, :, None]
+    log_f = np.stack([np.log(ps.market.forward(n, t)) for n in ps.names])[None, :, :]
+    w = (np.log(ps.levels) - log_f + 0.5 * sig**2 * t) / sig
+    return d_spot, ps.levels * (w - sig * t)
+
+
+def pathwise_from_gradient(ps: PathSet, grad: np.ndarray) -> dict[str, np.ndarray]:
+    """Pathwise delta and vega of every asset from d payoff / d level, (paths, assets, dates)."""
+    d_spot, d_vol = level_sensitivities(ps)
+    out = {}
+    for i, n in enumerate(ps.names):
+        out[f"delta {n}"] = np.sum(grad[:, i, :] * d_spot[:, i, :], axis=1)
+        if d_vol is not None:
+            out[f"vega {n}"] = np.sum(grad[:, i, :] * d_vol[:, i, :], axis=1)
+    return out
 
 
 def asset_list(assets) -> tuple[str, ...]:

@@ -13,6 +13,7 @@ model), each asset's own vanilla option, and each asset's discounted terminal le
 
 from __future__ import annotations
 
+import dataclasses
 import math
 from dataclasses import dataclass, field
 from datetime import date
@@ -23,7 +24,14 @@ import numpy as np
 from fairpath import closed_form as cf
 from fairpath.errors import InputError
 from fairpath.market import Market, integrate_vol_product
-from fairpath.products.base import ControlVariate, PathSet, Product, asset_list, read_asset_names
+from fairpath.products.base import (
+    ControlVariate,
+    PathSet,
+    Product,
+    asset_list,
+    pathwise_from_gradient,
+    read_asset_names,
+)
 from fairpath.products.vanilla import RIGHTS
 
 COMBINES = ("worst", "best", "average")
@@ -50,6 +58,8 @@ class Basket(Product):
     expiry: date = field(kw_only=True)
     weights: tuple[float, ...] | None = field(default=None, kw_only=True)
     notional: float = field(default=1.0, kw_only=True)
+    #: absolute initial level per asset for a basket already struck (else today's spots)
+    initial_levels: tuple[tuple[str, float], ...] = field(default=(), kw_only=True)
 
     def __post_init__(self):
         assets = asset_list(self.assets)
@@ -67,7 +77,8 @@ class Basket(Product):
         if self.weights is None:
             w = tuple(1.0 / len(assets) for _ in assets)
         else:
-            if self.combine != "average":
+            equal = all(abs(float(x) - 1.0 / len(assets)) < 1e-15 for x in self.weights)
+            if self.combine != "average" and not (equal and len(self.weights) == len(assets)):
                 raise InputError(f"weights apply to combine = \"average\" only, not "
                                  f"{self.combine!r}", key="weights")
             w = tuple(float(x) for x in self.weights)
@@ -80,6 +91,21 @@ class Basket(Product):
                 raise InputError(f"weights must sum to 1, they sum to {sum(w):.10g}",
                                  key="weights")
         object.__setattr__(self, "weights", w)
+        init = self.initial_levels
+        if isinstance(init, dict):
+            init = tuple(init.items())
+        init = tuple((str(k), float(v)) for k, v in init)
+        object.__setattr__(self, "initial_levels", init)
+        for k, v in init:
+            if k not in assets:
+                raise InputError(f"{k!r} is not one of the basket's assets {list(assets)}",
+                                 key=f"initial_levels.{k}")
+            if not (math.isfinite(v) and v > 0):
+                raise InputError(f"must be a positive level, got {v}", key=f"initial_levels.{k}")
+        if init and {k for k, _ in init} != set(assets):
+            missing = [a for a in assets if a not in dict(init)]
+            raise InputError(f"give an initial level for every asset; missing "
+                             f"{', '.join(missing)}", key="initial_levels")
 
     @classmethod
     def from_table(cls, tab) -> dict:
@@ -88,12 +114,17 @@ class Basket(Product):
         if weights is not None:
             weights = tuple(tab.check_number(f"weights[{i}]", x, nonnegative=True)
                             for i, x in enumerate(weights))
+        init = tab.table("initial_levels", None)
+        levels = ()
+        if init is not None:
+            levels = tuple((k, init.number(k, positive=True)) for k in list(init.data))
         notional = tab.number("notional", 1.0)
         quantity = tab.number("quantity", 1.0)
         return dict(assets=tuple(assets), combine=tab.string("combine", choices=COMBINES),
                     right=tab.string("right", choices=RIGHTS),
                     strike_level=tab.number("strike_level", nonnegative=True),
                     expiry=tab.date("expiry"), weights=weights, notional=notional * quantity,
+                    initial_levels=levels,
                     name=tab.string("name", None))
 
     def underlyings(self) -> tuple[str, ...]:
@@ -110,8 +141,21 @@ class Basket(Product):
         k = self.strike_level
         return np.maximum(level - k, 0.0) if self.right == "call" else np.maximum(k - level, 0.0)
 
+    def initial(self, market: Market) -> np.ndarray:
+        if self.initial_levels:
+            d = dict(self.initial_levels)
+            return np.array([d[a] for a in self.assets])
+        return np.array([market.asset(a).spot for a in self.assets])
+
+    def struck(self, market: Market) -> Basket:
+        """The same basket with its initial levels fixed at today's spots (for bumps)."""
+        if self.initial_levels:
+            return self
+        return dataclasses.replace(self, initial_levels=tuple(
+            zip(self.assets, self.initial(market).tolist(), strict=True)))
+
     def performances(self, ps: PathSet) -> np.ndarray:
-        return ps.levels[:, :, -1] / ps.spots
+        return ps.levels[:, :, -1] / self.initial(ps.market)
 
     def payoff(self, paths: PathSet) -> np.ndarray:
         perf = self.performances(paths)
@@ -141,7 +185,8 @@ class Basket(Product):
             for j in range(n):
                 cov[i, j] = corr[i, j] * integrate_vol_product(assets[i].vol, assets[j].vol,
                                                                0.0, t)
-        mean_log = sum(w[i] * (math.log(market.forward(a.name, t) / a.spot) - 0.5 * cov[i, i])
+        init = self.initial(market)
+        mean_log = sum(w[i] * (math.log(market.forward(a.name, t) / init[i]) - 0.5 * cov[i, i])
                        for i, a in enumerate(assets))
         var = float(w @ cov @ w)
         df = float(market.discount.df(t))
@@ -155,15 +200,38 @@ class Basket(Product):
         out = [ControlVariate("geometric basket", self._geometric, self.geometric_value(market))]
         df = float(market.discount.df(t))
         r = float(market.discount.zero(t))
+        init = self.initial(market)
         for i, name in enumerate(self.assets):
             a = market.asset(name)
-            mean = float(cf.bsm_price(1.0, self.strike_level, t, r, a.dividend_yield,
-                                      float(a.vol.implied(t)), self.right))
+            mean = float(cf.bsm_price(a.spot / init[i], self.strike_level, t, r,
+                                      a.dividend_yield, float(a.vol.implied(t)), self.right))
 
-            def single(ps: PathSet, i=i, df=df):
-                return self._option(ps.levels[:, i, -1] / ps.spots[i]) * df
+            def single(ps: PathSet, i=i, df=df, i0=init[i]):
+                return self._option(ps.levels[:, i, -1] / i0) * df
             out.append(ControlVariate(f"{name} vanilla", single, mean))
         return out + Product.controls(self, market)
+
+    def has_pathwise(self, market: Market) -> bool:
+        return True
+
+    def pathwise(self, paths: PathSet) -> dict[str, np.ndarray]:
+        ps = paths
+        init = self.initial(ps.market)
+        perf = self.performances(ps)
+        n, k = perf.shape
+        dlevel = np.zeros((n, k))
+        if self.combine == "average":
+            level = perf @ np.asarray(self.weights)
+            dlevel[:] = np.asarray(self.weights) / init
+        else:
+            pick = perf.argmin(axis=1) if self.combine == "worst" else perf.argmax(axis=1)
+            level = perf[np.arange(n), pick]
+            dlevel[np.arange(n), pick] = 1.0 / init[pick]
+        k_ = self.strike_level
+        ind = (level > k_) if self.right == "call" else -(level < k_).astype(float)
+        grad = np.zeros_like(ps.levels)
+        grad[:, :, -1] = dlevel * (ind * ps.df(self.expiry) * self.notional)[:, None]
+        return pathwise_from_gradient(ps, grad)
 
     def closed_form(self, market: Market) -> float | None:
         if len(self.assets) == 1:

@@ -11,7 +11,7 @@ import numpy as np
 from fairpath import closed_form as cf
 from fairpath.errors import InputError
 from fairpath.market import Market
-from fairpath.products.base import PathSet, Product
+from fairpath.products.base import PathSet, Product, pathwise_from_gradient
 
 RIGHTS = ("call", "put")
 
@@ -68,6 +68,15 @@ class European(OneAssetAtExpiry):
             return None
         return float(cf.bsm_price(*args, self.right)) * self.quantity
 
+    def has_pathwise(self, market: Market) -> bool:
+        return True
+
+    def pathwise(self, paths: PathSet) -> dict[str, np.ndarray]:
+        s = paths.levels[:, 0, :]
+        ind = (s > self.strike) if self.right == "call" else -(s < self.strike).astype(float)
+        grad = (ind * (paths.df(self.expiry) * self.quantity))[:, None, :]
+        return pathwise_from_gradient(paths, grad)
+
 
 @dataclass(frozen=True, slots=True)
 class Digital(OneAssetAtExpiry):
@@ -75,6 +84,7 @@ class Digital(OneAssetAtExpiry):
     (put), times ``quantity``."""
 
     kind: ClassVar[str] = "digital"
+    payoff_jumps: ClassVar[bool] = True
 
     payout: float = field(default=1.0, kw_only=True)
 
