@@ -258,4 +258,4 @@ def test_good_weights_are_used():
                   expiry=EXPIRY, weights=(0.5, 0.3, 0.2))
     assert p.weights == (0.5, 0.3, 0.2)
     assert np.allclose(fp.Basket(assets=NAMES, combine="average", right="call",
-                                 strike_level=1.0, expiry=EXPIRY).weights, (1 / 3,) * 3)
+                                 strike_level=1.0, expiry=EXPIRY).basket_weights, (1 / 3,) * 3)

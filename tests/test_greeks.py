@@ -213,3 +213,37 @@ def test_cli_greeks_bad_method(capsys):
         main(["greeks", "payoffs/european_call.toml", "--market", "markets/demo.toml",
               "--method", "magic"])
     assert exc.value.code == 2
+
+
+@pytest.mark.parametrize("sampler", ["sobol", "pseudo"])
+def test_digital_likelihood_ratio_delta_gamma(sampler):
+    # reference: cash-or-nothing closed-form delta and gamma (Reiner & Rubinstein 1991); the
+    # likelihood-ratio estimator is unbiased, so no bump allowance
+    m = market()
+    T = m.time(EXPIRY)
+    p = fp.Digital(asset="NORDA", right="put", strike=95.0, expiry=EXPIRY, payout=10.0)
+    res = fp.greeks(p, m, paths=32768, sampler=sampler, seed=19, method="lr")
+    ref = cf.digital_greeks(100.0, 95.0, T, R, Q, VOL, "put", payout=10.0)
+    for name in ("delta", "gamma"):
+        g = res.delta["NORDA"] if name == "delta" else res.gamma["NORDA"]
+        assert g.method.startswith("likelihood ratio")
+        assert abs(g.value - ref[name]) <= 4 * g.stderr, (name, g.value, ref[name], g.stderr)
+    auto = fp.greeks(p, m, paths=32768, sampler=sampler, seed=19, method="auto")
+    bump = fp.greeks(p, m, paths=32768, sampler=sampler, seed=19, method="bump")
+    # auto keeps the smaller error of the two
+    assert auto.gamma["NORDA"].stderr == min(res.gamma["NORDA"].stderr,
+                                             bump.gamma["NORDA"].stderr)
+
+
+def test_likelihood_ratio_and_bumps_agree_on_a_note():
+    # an autocallable (jumping payoff): the two delta estimators agree within their errors
+    m = market()
+    obs = (date(2027, 6, 1), date(2027, 12, 1), date(2028, 6, 1))
+    note = fp.Autocallable(assets=("NORDA",), observations=obs, notional=100.0,
+                           autocall_level=1.0, coupon=0.04, coupon_barrier=0.8,
+                           protection_barrier=0.6)
+    lr = fp.greeks(note, m, paths=32768, sampler="pseudo", seed=23, method="lr")
+    bump = fp.greeks(note, m, paths=32768, sampler="pseudo", seed=23, method="bump")
+    a, b = lr.delta["NORDA"], bump.delta["NORDA"]
+    assert abs(a.value - b.value) <= 4 * np.hypot(a.stderr, b.stderr) + 0.01 * abs(b.value)
+    assert any("jumps" in n for n in lr.notes)

@@ -8,7 +8,7 @@
 
 from fairpath.errors import FairpathError, FairpathWarning, InputError, SamplingWarning
 from fairpath.estimate import CAUTION, PriceResult, price, price_many
-from fairpath.greeks import GreeksResult, greeks
+from fairpath.greeks import GreeksResult, greek_profile, greeks
 from fairpath.market import Asset, Correlation, DiscountCurve, Market, VolCurve, load_market
 from fairpath.products import (
     REGISTRY,
@@ -31,5 +31,5 @@ __all__ = [
     "FairpathError", "FairpathWarning", "GreeksResult", "InputError", "Market", "PriceResult",
     "Product",
     "SamplingWarning", "SolveResult", "VolCurve", "load_market", "load_product", "price",
-    "greeks", "price_many", "solve",
+    "greek_profile", "greeks", "price_many", "solve",
 ]

@@ -76,9 +76,9 @@ def build_parser() -> argparse.ArgumentParser:
     g.add_argument("product", help="product TOML file")
     g.add_argument("--market", required=True, help="market TOML file")
     _add_mc_options(g)
-    g.add_argument("--method", choices=("bump", "pathwise", "auto"), default="auto",
-                   help="bump-and-revalue on common random numbers, pathwise, or the best "
-                        "available per Greek (default %(default)s)")
+    g.add_argument("--method", choices=("bump", "pathwise", "lr", "auto"), default="auto",
+                   help="bump-and-revalue on common random numbers, pathwise, likelihood "
+                        "ratio, or the best available per Greek (default %(default)s)")
     g.add_argument("--json", action="store_true", help="print one JSON object")
 
     s = sub.add_parser("solve", help="the value of a product key that makes the price a target")
@@ -180,7 +180,7 @@ def _solve(args) -> int:
 def _validate(args) -> int:
     from fairpath import validate
 
-    results = validate.run()
+    results = validate.run() + validate.greek_results()
     if args.json:
         print(json.dumps([r.to_dict() for r in results]))
     else:

@@ -57,7 +57,7 @@ from fairpath.sampling import DEFAULT_REPLICATES, make_sampler
 SPOT_BUMP = 0.01
 VOL_BUMP = 0.01
 RATE_BUMP = 1e-4
-METHODS = ("bump", "pathwise", "auto")
+METHODS = ("bump", "pathwise", "lr", "auto")
 
 
 @dataclass(frozen=True, slots=True)
@@ -178,12 +178,14 @@ class _Scenarios:
             params = model.steps(times) if len(times) else None
             self.setups.append((m, model.spots, times, params))
 
-    def values(self, z: np.ndarray, want_pathwise: bool) -> tuple[np.ndarray, dict]:
+    def values(self, z: np.ndarray, want_pathwise: bool, want_lr: bool
+               ) -> tuple[np.ndarray, dict]:
         cols = []
         pathwise: dict = {}
         sim = self.sim
         for j, (m, spots, times, params) in enumerate(self.setups):
             x = simulate_log_levels(params, spots, z.copy())
+            first = x[:, :, 0].copy() if j == 0 and want_lr else None
             grid = np.exp(x, out=x)
             dates = sim.dates[0]
             levels = np.empty((z.shape[0], len(sim.names), len(dates)))
@@ -194,7 +196,36 @@ class _Scenarios:
             cols.append(np.asarray(self.product.payoff(ps), dtype=float))
             if j == 0 and want_pathwise:
                 pathwise = self.product.pathwise(ps)
+            if first is not None:
+                pathwise.update(likelihood_ratio(cols[0], first, spots, params, sim.names))
         return np.stack(cols, axis=1), pathwise
+
+
+def likelihood_ratio(y: np.ndarray, x1: np.ndarray, spots: np.ndarray, params,
+                     names: tuple[str, ...]) -> dict[str, np.ndarray]:
+    """Likelihood-ratio (score) weights for delta and gamma from the first simulation step.
+
+    The spots enter the path's density only through the first step's log-return, normal with
+    mean ``mu`` and covariance ``C``. With ``a = C^{-1} (x_1 - log S_0 - mu)``:
+    ``d/dS_i log p = a_i / S_i`` and ``d2p / (p dS_i dS_j) = (a_i a_j - C^{-1}_ij - delta_ij a_i)
+    / (S_i S_j)`` (Broadie & Glasserman 1996; Glasserman, "Monte Carlo Methods in Financial
+    Engineering", 2004, section 7.3). Unbiased for any payoff, jumps included; the variance grows
+    as the first step shrinks.
+    """
+    L = params.factor[0]
+    cov = L @ L.T
+    inv = np.linalg.pinv(cov)
+    xi = x1 - np.log(spots)[None, :] - params.drift[:, 0][None, :]
+    a = xi @ inv.T
+    out = {}
+    n = len(names)
+    for i in range(n):
+        out[f"lr delta {names[i]}"] = y * a[:, i] / spots[i]
+        out[f"lr gamma {names[i]}"] = y * (a[:, i] ** 2 - inv[i, i] - a[:, i]) / spots[i] ** 2
+        for k in range(i + 1, n):
+            out[f"lr cross {names[i]}/{names[k]}"] = \
+                y * (a[:, i] * a[:, k] - inv[i, k]) / (spots[i] * spots[k])
+    return out
 
 
 # ---------------------------------------------------------------------------------------------
@@ -242,7 +273,8 @@ def greeks(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
         notes.append(f"the {product.kind} payoff jumps: bumped Greeks count the paths that cross "
                      "a trigger, and for small moves (theta's one day, above all) a Sobol run "
                      "may see too few crossings for the estimate or its error bar to be "
-                     "reliable; likelihood-ratio estimators are not available yet")
+                     "reliable; delta and gamma also have likelihood-ratio estimates, and "
+                     "'auto' keeps whichever has the smaller error")
     # scenario list: (label, market)
     scen: list[tuple[str, Market]] = [("base", market)]
     bumps = {"spot": f"{SPOT_BUMP:.0%} of spot, central", "vol": f"{VOL_BUMP:g} absolute, central",
@@ -280,6 +312,12 @@ def greeks(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
         raise InputError("nothing left to simulate: every level the payoff needs is known, so "
                          "the Greeks are those of a fixed amount", source=source)
     use_pathwise = method in ("pathwise", "auto") and product.has_pathwise(market)
+    first_var = GBM.from_market(market, names).steps(runner.sim.grid_times[:1]).variance[:, 0]
+    use_lr = (method == "lr" or (method == "auto" and product.payoff_jumps)) and \
+        bool(np.all(first_var > 0)) and product.score_safe()
+    if method == "lr" and not use_lr:
+        notes.append("no likelihood-ratio estimator here (the first step has no variance, or "
+                     "the payoff uses today's spot directly): bumps used")
     if method == "pathwise" and not use_pathwise:
         notes.append(f"no pathwise estimator for {product.kind}: bump-and-revalue used")
 
@@ -289,7 +327,7 @@ def greeks(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
     n_a = len(names)
     for b in blocks:
         z = smp.normals([b], n_a, runner.sim.grid_times)
-        v, pw = runner.values(z, use_pathwise)
+        v, pw = runner.values(z, use_pathwise, use_lr)
         if pw:
             pw_names = sorted(pw)
             v = np.concatenate([v, np.stack([pw[k] for k in pw_names], axis=1)], axis=1)
@@ -325,6 +363,17 @@ def greeks(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
     delta, gamma, vega, cross = {}, {}, {}, {}
     n_scen = len(scen)
     pw_index = {k: n_scen + i for i, k in enumerate(pw_names)}
+    def pick(bumped: Greek, lr_key: str) -> Greek:
+        """``lr``: the likelihood-ratio estimate; ``auto``: the one with the smaller error."""
+        if lr_key not in pw_index:
+            return bumped
+        lr = combo({pw_index[lr_key]: 1.0}, "likelihood ratio (first step)")
+        if method == "lr" or lr.stderr < bumped.stderr:
+            return lr if method == "lr" else dataclasses.replace(
+                lr, method="likelihood ratio (first step; smaller error than bumps)")
+        return dataclasses.replace(bumped, method=bumped.method + "; smaller error than "
+                                   "likelihood ratio")
+
     for n in names:
         s = market.asset(n).spot
         h = SPOT_BUMP * s
@@ -332,9 +381,10 @@ def greeks(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
         if f"delta {n}" in pw_index:
             delta[n] = combo({pw_index[f"delta {n}"]: 1.0}, "pathwise")
         else:
-            delta[n] = combo({up: 0.5 / h, dn: -0.5 / h}, "bump (central, common numbers)")
-        gamma[n] = combo({up: 1 / h**2, 0: -2 / h**2, dn: 1 / h**2},
-                         "bump (central, common numbers)")
+            delta[n] = pick(combo({up: 0.5 / h, dn: -0.5 / h}, "bump (central, common numbers)"),
+                            f"lr delta {n}")
+        gamma[n] = pick(combo({up: 1 / h**2, 0: -2 / h**2, dn: 1 / h**2},
+                              "bump (central, common numbers)"), f"lr gamma {n}")
         if f"vega {n}" in pw_index:
             vega[n] = combo({pw_index[f"vega {n}"]: 1.0}, "pathwise")
         else:
@@ -343,9 +393,12 @@ def greeks(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
     for a, b in pairs:
         ha, hb = SPOT_BUMP * market.asset(a).spot, SPOT_BUMP * market.asset(b).spot
         c = 1.0 / (4 * ha * hb)
-        cross[f"{a}/{b}"] = combo({index[f"S+1+1 {a}/{b}"]: c, index[f"S+1-1 {a}/{b}"]: -c,
-                                   index[f"S-1+1 {a}/{b}"]: -c, index[f"S-1-1 {a}/{b}"]: c},
-                                  "bump (four corners, common numbers)")
+        cross[f"{a}/{b}"] = pick(combo({index[f"S+1+1 {a}/{b}"]: c,
+                                        index[f"S+1-1 {a}/{b}"]: -c,
+                                        index[f"S-1+1 {a}/{b}"]: -c,
+                                        index[f"S-1-1 {a}/{b}"]: c},
+                                       "bump (four corners, common numbers)"),
+                                 f"lr cross {a}/{b}")
     rho = combo({index["r+"]: 0.5 / RATE_BUMP, index["r-"]: -0.5 / RATE_BUMP},
                 "bump (central, common numbers)")
     theta = None
@@ -356,3 +409,33 @@ def greeks(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
     return GreeksResult(base.value, base.stderr, market.currency, delta, gamma, vega, cross,
                         rho, theta, paths, smp.name, smp.seed, time.perf_counter() - t0, bumps,
                         tuple(notes))
+
+
+def greek_profile(product: Product, market: Market, asset: str | None = None,
+                  spots=None, **kwargs) -> list[tuple[float, GreeksResult]]:
+    """The Greeks over a range of spots of one asset (default: 70% to 130% of spot, 13 points),
+    each on the same random numbers; keyword arguments go to :func:`greeks`.
+
+    Examples
+    --------
+    >>> import fairpath as fp
+    >>> from datetime import date
+    >>> m = fp.Market(date(2026, 12, 1), "EUR", fp.DiscountCurve.flat(0.05),
+    ...               (fp.Asset("NORDA", 100.0, fp.VolCurve.flat(0.2)),))
+    >>> put = fp.European(asset="NORDA", right="put", strike=100.0, expiry=date(2027, 12, 1))
+    >>> prof = greek_profile(put, m, spots=[80.0, 120.0], paths=4096)
+    >>> prof[0][1].delta["NORDA"].value < prof[1][1].delta["NORDA"].value
+    True
+    """
+    asset = asset or product.underlyings()[0]
+    base = market.asset(asset).spot
+    if spots is None:
+        spots = np.linspace(0.7, 1.3, 13) * base
+    product = product.struck(market)
+    out = []
+    for s in spots:
+        if not s > 0:
+            raise InputError(f"spots must be positive, got {s}", key="spots")
+        m = _bump_spot(market, asset, float(s) / base)
+        out.append((float(s), greeks(product, m, **kwargs)))
+    return out

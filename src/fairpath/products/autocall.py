@@ -192,6 +192,9 @@ class Autocallable(Product):
     def observation_dates(self) -> tuple[date, ...]:
         return self.observations  # past ones (on or before valuation) come back as spots
 
+    def score_safe(self) -> bool:
+        return self.protection_monitoring != "continuous"  # bridge from today's spot
+
     def daily_until(self) -> date | None:
         return None if self.protection_monitoring == "final" else self.maturity
 

@@ -134,6 +134,9 @@ class Barrier(OneAssetAtExpiry):
         return (f"spot {spot:g} is {side} the barrier {self.barrier:g}: already knocked out, "
                 f"worth its rebate {self.rebate:g} paid now",)
 
+    def score_safe(self) -> bool:
+        return self.monitoring != "continuous"  # the first bridge step starts from the spot
+
     def daily_until(self) -> date | None:
         return self.expiry if self.monitoring == "daily" else None
 

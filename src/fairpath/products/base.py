@@ -142,6 +142,11 @@ class Product:
     #: does the payoff jump as a function of the levels (digitals, triggers, discrete barriers)?
     payoff_jumps: ClassVar[bool] = False
 
+    def score_safe(self) -> bool:
+        """Does the payoff depend on today's spots only through the simulated levels? Then the
+        likelihood-ratio weights are valid (a Brownian-bridge weight from today's spot is not)."""
+        return True
+
     def has_pathwise(self, market: Market) -> bool:
         """Does :meth:`pathwise` give estimators for this product on this market?"""
         return False

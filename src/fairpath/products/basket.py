@@ -45,7 +45,7 @@ class Basket(Product):
     --------
     >>> from datetime import date
     >>> Basket(assets=("NORDA", "KELPA"), combine="worst", right="put", strike_level=1.0,
-    ...        expiry=date(2027, 12, 1), notional=1000.0).weights
+    ...        expiry=date(2027, 12, 1), notional=1000.0).basket_weights
     (0.5, 0.5)
     """
 
@@ -74,11 +74,8 @@ class Basket(Product):
                              key="strike_level")
         if not math.isfinite(self.notional):
             raise InputError(f"must be a finite number, got {self.notional}", key="notional")
-        if self.weights is None:
-            w = tuple(1.0 / len(assets) for _ in assets)
-        else:
-            equal = all(abs(float(x) - 1.0 / len(assets)) < 1e-15 for x in self.weights)
-            if self.combine != "average" and not (equal and len(self.weights) == len(assets)):
+        if self.weights is not None:
+            if self.combine != "average":
                 raise InputError(f"weights apply to combine = \"average\" only, not "
                                  f"{self.combine!r}", key="weights")
             w = tuple(float(x) for x in self.weights)
@@ -90,7 +87,7 @@ class Basket(Product):
             if abs(sum(w) - 1.0) > 1e-9:
                 raise InputError(f"weights must sum to 1, they sum to {sum(w):.10g}",
                                  key="weights")
-        object.__setattr__(self, "weights", w)
+            object.__setattr__(self, "weights", w)
         init = self.initial_levels
         if isinstance(init, dict):
             init = tuple(init.items())
@@ -141,6 +138,13 @@ class Basket(Product):
         k = self.strike_level
         return np.maximum(level - k, 0.0) if self.right == "call" else np.maximum(k - level, 0.0)
 
+    @property
+    def basket_weights(self) -> tuple[float, ...]:
+        """The weights in use: as given, else equal."""
+        if self.weights is not None:
+            return self.weights
+        return tuple(1.0 / len(self.assets) for _ in self.assets)
+
     def initial(self, market: Market) -> np.ndarray:
         if self.initial_levels:
             d = dict(self.initial_levels)
@@ -164,19 +168,19 @@ class Basket(Product):
         elif self.combine == "best":
             level = perf.max(axis=1)
         else:
-            level = perf @ np.asarray(self.weights)
+            level = perf @ np.asarray(self.basket_weights)
         return self._option(level) * (paths.df(self.expiry) * self.notional)
 
     # -- controls ------------------------------------------------------------------------
     def _geometric(self, ps: PathSet) -> np.ndarray:
         perf = self.performances(ps)
-        g = np.exp(np.log(perf) @ np.asarray(self.weights))
+        g = np.exp(np.log(perf) @ np.asarray(self.basket_weights))
         return self._option(g) * ps.df(self.expiry)
 
     def geometric_value(self, market: Market) -> float:
         """Exact value (unit notional) of the option on the geometric basket under the model."""
         t = market.time(self.expiry)
-        w = np.asarray(self.weights)
+        w = np.asarray(self.basket_weights)
         corr = market.correlation_matrix(self.assets)
         assets = [market.asset(n) for n in self.assets]
         n = len(assets)
@@ -221,8 +225,8 @@ class Basket(Product):
         n, k = perf.shape
         dlevel = np.zeros((n, k))
         if self.combine == "average":
-            level = perf @ np.asarray(self.weights)
-            dlevel[:] = np.asarray(self.weights) / init
+            level = perf @ np.asarray(self.basket_weights)
+            dlevel[:] = np.asarray(self.basket_weights) / init
         else:
             pick = perf.argmin(axis=1) if self.combine == "worst" else perf.argmax(axis=1)
             level = perf[np.arange(n), pick]
