@@ -58,6 +58,8 @@ SPOT_BUMP = 0.01
 VOL_BUMP = 0.01
 RATE_BUMP = 1e-4
 METHODS = ("bump", "pathwise", "lr", "auto")
+#: ``auto`` keeps a bump over the likelihood ratio only when the latter is this much noisier.
+LR_NOISE = 3.0
 
 
 @dataclass(frozen=True, slots=True)
@@ -273,8 +275,8 @@ def greeks(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
         notes.append(f"the {product.kind} payoff jumps: bumped Greeks count the paths that cross "
                      "a trigger, and for small moves (theta's one day, above all) a Sobol run "
                      "may see too few crossings for the estimate or its error bar to be "
-                     "reliable; delta and gamma also have likelihood-ratio estimates, and "
-                     "'auto' keeps whichever has the smaller error")
+                     "reliable; delta and gamma also have likelihood-ratio estimates, which "
+                     "'auto' prefers unless they are far noisier")
     # scenario list: (label, market)
     scen: list[tuple[str, Market]] = [("base", market)]
     bumps = {"spot": f"{SPOT_BUMP:.0%} of spot, central", "vol": f"{VOL_BUMP:g} absolute, central",
@@ -364,15 +366,19 @@ def greeks(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
     n_scen = len(scen)
     pw_index = {k: n_scen + i for i, k in enumerate(pw_names)}
     def pick(bumped: Greek, lr_key: str) -> Greek:
-        """``lr``: the likelihood-ratio estimate; ``auto``: the one with the smaller error."""
+        """``lr``: the likelihood-ratio estimate. ``auto`` (payoffs that jump): the likelihood
+        ratio, whose error bar is trustworthy, unless it is more than LR_NOISE times noisier
+        than a bump whose error bar is not zero (a bump of a jumping payoff can show an error
+        of exactly zero when no scrambling sees a path cross the trigger)."""
         if lr_key not in pw_index:
             return bumped
         lr = combo({pw_index[lr_key]: 1.0}, "likelihood ratio (first step)")
-        if method == "lr" or lr.stderr < bumped.stderr:
-            return lr if method == "lr" else dataclasses.replace(
-                lr, method="likelihood ratio (first step; smaller error than bumps)")
-        return dataclasses.replace(bumped, method=bumped.method + "; smaller error than "
-                                   "likelihood ratio")
+        if method == "lr":
+            return lr
+        if bumped.stderr > 0 and lr.stderr > LR_NOISE * bumped.stderr:
+            return dataclasses.replace(bumped, method=bumped.method + f"; the likelihood ratio "
+                                       f"was over {LR_NOISE:g}x noisier")
+        return lr
 
     for n in names:
         s = market.asset(n).spot
