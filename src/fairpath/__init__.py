@@ -21,6 +21,7 @@ from fairpath.products import (
     Product,
     load_product,
 )
+from fairpath.quotes import QuoteCheck, check_quote, check_quotes
 from fairpath.solve import SolveResult, solve
 
 __version__ = "0.1.0"
@@ -31,5 +32,6 @@ __all__ = [
     "FairpathError", "FairpathWarning", "GreeksResult", "InputError", "Market", "PriceResult",
     "Product",
     "SamplingWarning", "SolveResult", "VolCurve", "load_market", "load_product", "price",
-    "greek_profile", "greeks", "price_many", "solve",
+    "QuoteCheck", "check_quote", "check_quotes", "greek_profile", "greeks", "price_many",
+    "solve",
 ]

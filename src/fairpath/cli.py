@@ -1,4 +1,4 @@
-"""Command line: ``fairpath price | greeks | solve | validate | demo``.
+"""Command line: ``fairpath price | greeks | check | solve | validate | demo``.
 
 Exit status: 0 on success, 2 on bad input (one line on stderr naming the file, the key and the
 problem), 1 on an internal error.
@@ -41,6 +41,7 @@ def _arg(kind, ok, what: str):
 _positive_int = _arg(int, lambda v: v >= 1, "a positive integer")
 _seed = _arg(int, lambda v: v >= 0, "a non-negative integer")
 _positive_float = _arg(float, lambda v: 0 < v < float("inf"), "a positive number")
+_nonnegative_float = _arg(float, lambda v: 0 <= v < float("inf"), "a non-negative number")
 _finite_float = _arg(float, lambda v: abs(v) < float("inf"), "a finite number")
 
 
@@ -81,6 +82,15 @@ def build_parser() -> argparse.ArgumentParser:
                         "ratio, or the best available per Greek (default %(default)s)")
     g.add_argument("--json", action="store_true", help="print one JSON object")
 
+    c = sub.add_parser("check", help="is each dealer quote in a CSV fair, rich or cheap?")
+    c.add_argument("quotes", help="CSV with columns product,quote[,tolerance]")
+    c.add_argument("--market", required=True, help="market TOML file")
+    c.add_argument("--vol-band", type=_nonnegative_float, default=0.01,
+                   help="vols moved down and up by this for the band (default %(default)s)")
+    c.add_argument("--report", default=None, help="write a self-contained HTML report here")
+    _add_mc_options(c)
+    c.add_argument("--json", action="store_true", help="print a JSON list")
+
     s = sub.add_parser("solve", help="the value of a product key that makes the price a target")
     s.add_argument("product", help="product TOML file")
     s.add_argument("--market", required=True, help="market TOML file")
@@ -111,6 +121,8 @@ def main(argv: list[str] | None = None) -> int:
     try:
         if args.command == "price":
             return _price(args)
+        if args.command == "check":
+            return _check(args)
         if args.command == "greeks":
             return _greeks(args)
         if args.command == "solve":
@@ -144,6 +156,44 @@ def _price(args) -> int:
     else:
         print(res)
         print(f"\n{estimate.CAUTION}")
+    return 0
+
+
+def _check(args) -> int:
+    from fairpath.quotes import check_quotes, write_report
+
+    market = load_market(args.market)
+    checks = check_quotes(args.quotes, market, vol_band=args.vol_band, paths=args.paths,
+                          sampler=args.sampler, seed=args.seed)
+    if args.report:
+        write_report(args.report, checks, market,
+                     {"quotes": args.quotes, "market": args.market, "paths": args.paths,
+                      "sampler": args.sampler, "seed": args.seed if args.seed is not None
+                      else "default", "vol band": args.vol_band})
+    if args.json:
+        print(json.dumps([c.to_dict() for c in checks]))
+        return 0
+    head = (f"{'product':<34} {'quote':>11} {'price':>11} {'stderr':>9} {'band':>25} "
+            f"{'z':>7} {'verdict':<7} {'implied vol':>11}")
+    print(head)
+    print("-" * len(head))
+    for c in checks:
+        if c.status != "ok":
+            print(f"{c.product[:34]:<34} error: {c.message}")
+            continue
+        band = f"[{c.low:.4f}, {c.high:.4f}]"
+        iv = "" if c.implied_vol is None else f"{c.implied_vol:.2%}"
+        z = "" if c.z is None else f"{c.z:.1f}"
+        print(f"{c.product[:34]:<34} {c.quote:>11.4f} {c.price:>11.4f} {c.stderr:>9.4f} "
+              f"{band:>25} {z:>7} {c.verdict:<7} {iv:>11}")
+        if c.implied_vol_note:
+            print(f"{'':<34} implied vol: {c.implied_vol_note}")
+        if c.fair_coupon is not None:
+            print(f"{'':<34} coupon {c.coupon:.4%}, fair coupon at the quote "
+                  f"{c.fair_coupon:.4%}")
+    if args.report:
+        print(f"\nreport written to {args.report}")
+    print(f"\n{estimate.CAUTION}")
     return 0
 
 
