@@ -150,7 +150,7 @@ def _price(args) -> int:
                          seed=args.seed, antithetic=args.antithetic,
                          control=not args.no_control, target_stderr=args.target_stderr,
                          max_paths=args.max_paths, replicates=args.replicates,
-                         source=args.product)
+                         source=args.product, progress=not args.json and sys.stderr.isatty())
     if args.json:
         print(res.to_json())
     else:

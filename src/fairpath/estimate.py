@@ -79,6 +79,19 @@ class PriceResult:
     variance_reduction: float | None = None
     notes: tuple[str, ...] = ()
     extras: dict = field(default_factory=dict, compare=False)
+    #: (product, market, settings) that produced the result, for plots
+    context: tuple = field(default=(), compare=False, repr=False)
+
+    def plot(self, kind: str = "convergence", **kwargs):
+        """A picture of the result: ``"convergence"`` (the estimate and its 95% band as paths
+        grow), ``"distribution"`` (the discounted payoffs) or ``"paths"`` (a fan of sample paths
+        with the product's dates and barriers). Returns a matplotlib figure."""
+        from fairpath import plots
+
+        if not self.context:
+            raise InputError("this result carries no product and market to plot")
+        product, market, settings = self.context
+        return plots.plot_result(kind, product, market, settings, self, **kwargs)
 
     def to_dict(self) -> dict:
         """The JSON contract of ``fairpath price --json`` (contract keys first)."""
@@ -250,9 +263,16 @@ class Simulation:
                                 "(check the product's terms and the market inputs)")
         return v
 
+    progress: bool = False
+
     def run_blocks(self, blocks: list[Block], chunk_paths: int | None = None
                    ) -> dict[Block, BlockResult]:
         """Simulate ``blocks`` in chunks; return each block's moments for every product."""
+        bar = None
+        if self.progress and len(blocks) > 1:
+            from tqdm.auto import tqdm
+            bar = tqdm(total=sum(b.size for b in blocks), unit="path", leave=False,
+                       desc=self.products[0].label()[:30])
         n_a = len(self.names)
         per_path = max(1, n_a * max(self.steps, 1) * 8 * 3)
         if chunk_paths is None:
@@ -287,7 +307,26 @@ class Simulation:
                     dsum.append({k: float(np.sum(a[off:off + b.size])) for k, a in d.items()})
                 off += b.size
                 out[b] = BlockResult(tuple(moments), tuple(dsum))
+            if bar is not None:
+                bar.update(total)
+        if bar is not None:
+            bar.close()
         return out
+
+    def payoff_samples(self, blocks: list[Block]) -> np.ndarray:
+        """The first product's discounted payoff on every path of ``blocks``."""
+        out = []
+        for b in blocks:
+            z = self.sampler.normals([b], len(self.names), self.grid_times)
+            x = simulate_log_levels(self.params, self.spots, z)
+            ps = self.pathsets(x)[0]
+            out.append(np.asarray(self.products[0].payoff(ps), dtype=float))
+        return np.concatenate(out)
+
+    def level_samples(self, block: Block) -> np.ndarray:
+        """Levels on the grid of one block's paths, (paths, assets, grid dates)."""
+        z = self.sampler.normals([block], len(self.names), self.grid_times)
+        return np.exp(simulate_log_levels(self.params, self.spots, z))
 
     def deterministic_values(self) -> list[np.ndarray]:
         """Payoff and controls of each product when nothing is left to simulate."""
@@ -379,7 +418,8 @@ def price(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
           sampler: str = "sobol", seed: int | None = None, antithetic: bool = False,
           control: bool = True, target_stderr: float | None = None,
           max_paths: int = DEFAULT_MAX_PATHS, replicates: int = DEFAULT_REPLICATES,
-          chunk_paths: int | None = None, source: str | None = None) -> PriceResult:
+          chunk_paths: int | None = None, source: str | None = None,
+          progress: bool = False) -> PriceResult:
     """Monte Carlo price of ``product`` on ``market``.
 
     Parameters
@@ -400,6 +440,8 @@ def price(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
         ``max_paths``.
     chunk_paths : int, optional
         Paths simulated at once (memory); never changes the result.
+    progress : bool
+        Show a progress bar (tqdm; notebook-aware) while simulating.
 
     Examples
     --------
@@ -415,7 +457,7 @@ def price(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
     return price_many([product], market, paths=paths, sampler=sampler, seed=seed,
                       antithetic=antithetic, control=control, target_stderr=target_stderr,
                       max_paths=max_paths, replicates=replicates, chunk_paths=chunk_paths,
-                      source=source)[0]
+                      source=source, progress=progress)[0]
 
 
 def price_many(products: list[Product], market: Market, *, paths: int = DEFAULT_PATHS,
@@ -423,7 +465,8 @@ def price_many(products: list[Product], market: Market, *, paths: int = DEFAULT_
                control: bool = True, target_stderr: float | None = None,
                max_paths: int = DEFAULT_MAX_PATHS, replicates: int = DEFAULT_REPLICATES,
                chunk_paths: int | None = None, source: str | None = None,
-               control_set: tuple[str, ...] | None = None) -> list[PriceResult]:
+               control_set: tuple[str, ...] | None = None, progress: bool = False
+               ) -> list[PriceResult]:
     """Price several products on the same assets with the same random numbers.
 
     Arguments as for :func:`price`; ``target_stderr`` applies to the first product;
@@ -445,6 +488,7 @@ def price_many(products: list[Product], market: Market, *, paths: int = DEFAULT_
         p.check(market, source or p.source)
     controls = [p.controls(market) if control else [] for p in products]
     sim = Simulation(products, market, smp, controls, source)
+    sim.progress = progress
     notes: list[str] = []
     dim = len(sim.names) * sim.steps
     if smp.name == "sobol" and dim > SOBOL_MAX_DIM:
@@ -498,9 +542,12 @@ def price_many(products: list[Product], market: Market, *, paths: int = DEFAULT_
         if est.variance_reduction is not None:
             these.append(f"control variate ({'; '.join(est.controls)}): variance reduced "
                          f"x{est.variance_reduction:.3g}")
+        ctx = (p, market, {"paths": n, "sampler": sampler, "seed": seed,
+                           "antithetic": antithetic, "control": control,
+                           "replicates": replicates})
         out.append(PriceResult(est.price, est.stderr, est.ci95, n, currency, smp.name,
                                smp.seed, seconds, p.label(), smp.antithetic, smp.replicates,
                                est.controls, est.variance_reduction, tuple(these),
                                {"dates": [d.isoformat() for d in sim.grid_dates],
-                                "diagnostics": diag}))
+                                "diagnostics": diag}, ctx))
     return out
