@@ -8,6 +8,8 @@ closed-form price.
 from __future__ import annotations
 
 import json
+import shutil
+import subprocess
 from datetime import date
 from pathlib import Path
 
@@ -115,3 +117,22 @@ def test_bad_csv_is_one_line_exit_2(batch, capsys, content, needle):
 def test_missing_market_is_exit_2(batch, capsys):
     code = main(["check", str(batch / "quotes.csv"), "--market", str(batch / "nope.toml")])
     assert code == 2 and "file not found" in capsys.readouterr().err
+
+
+@pytest.mark.skipif(shutil.which("chromium") is None, reason="no headless Chromium here")
+def test_report_renders_in_a_headless_browser(batch, capsys):
+    report = batch / "report.html"
+    main(["check", str(batch / "quotes.csv"), "--market", str(batch / "market.toml"),
+          "--paths", "4096", "--report", str(report)])
+    shot = batch / "shot.png"
+    subprocess.run(["chromium", "--headless", "--no-sandbox", "--disable-gpu", "--disable-quic",
+                    "--no-first-run", "--disable-background-networking",
+                    "--disable-component-update", "--disable-sync",
+                    f"--user-data-dir={batch / 'chrome'}", "--window-size=1000,900",
+                    f"--screenshot={shot}", report.as_uri()],
+                   check=True, capture_output=True, timeout=120)
+    from matplotlib import image
+    pixels = image.imread(shot)
+    # the page drew something: many distinct colours (table, chart dots, caution box)
+    colours = {tuple(p) for p in pixels[::7, ::7, :3].reshape(-1, 3)}
+    assert pixels.shape[0] > 100 and len(colours) > 20
