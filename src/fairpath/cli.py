@@ -151,7 +151,12 @@ def _price(args) -> int:
                          control=not args.no_control, target_stderr=args.target_stderr,
                          max_paths=args.max_paths, replicates=args.replicates,
                          source=args.product, progress=not args.json and sys.stderr.isatty())
-    if args.json:
+    return _emit(res, args.json)
+
+
+def _emit(res, as_json: bool) -> int:
+    """Print a result as JSON, or as text followed by the caution."""
+    if as_json:
         print(res.to_json())
     else:
         print(res)
@@ -204,12 +209,7 @@ def _greeks(args) -> int:
     product = load_product(args.product)
     res = greeks(product, market, paths=args.paths, sampler=args.sampler, seed=args.seed,
                  method=args.method, replicates=args.replicates, source=args.product)
-    if args.json:
-        print(res.to_json())
-    else:
-        print(res)
-        print(f"\n{estimate.CAUTION}")
-    return 0
+    return _emit(res, args.json)
 
 
 def _solve(args) -> int:
@@ -219,12 +219,7 @@ def _solve(args) -> int:
     product = load_product(args.product)
     res = solve(product, market, args.key, args.target, paths=args.paths, sampler=args.sampler,
                 seed=args.seed, replicates=args.replicates, source=args.product)
-    if args.json:
-        print(res.to_json())
-    else:
-        print(res)
-        print(f"\n{estimate.CAUTION}")
-    return 0
+    return _emit(res, args.json)
 
 
 def _validate(args) -> int:
@@ -280,17 +275,17 @@ def _demo(args) -> int:
         return 0 if all(r["status"] == "ok" for r in rows) else 2
     print(f"Demo market {market_file.name}: valuation {market.valuation_date}, "
           f"{market.currency}; {args.paths:,} {args.sampler} paths per product\n")
-    head = (f"{'product':<30} {'kind':<10} {'price':>12} {'stderr':>10} "
+    head = (f"{'product':<40} {'kind':<12} {'price':>12} {'stderr':>10} "
             f"{'95% interval':>25} {'closed form':>12} {'sec':>6}")
     print(head)
     print("-" * len(head))
     for r in rows:
         if r["status"] != "ok":
-            print(f"{r['file']:<30} error: {r['message']}")
+            print(f"{r['file']:<40} error: {r['message']}")
             continue
         cf = "" if r["closed_form"] is None else f"{r['closed_form']:.4f}"
         ci = f"[{r['ci95'][0]:.4f}, {r['ci95'][1]:.4f}]"
-        print(f"{r['name'][:30]:<30} {r['kind']:<10} {r['price']:>12.4f} {r['stderr']:>10.4f} "
+        print(f"{r['name'][:40]:<40} {r['kind']:<12} {r['price']:>12.4f} {r['stderr']:>10.4f} "
               f"{ci:>25} {cf:>12} {r['seconds']:>6.2f}")
     print(f"\n{estimate.CAUTION}")
     return 0 if all(r["status"] == "ok" for r in rows) else 2
