@@ -9,6 +9,7 @@
 from fairpath.errors import FairpathError, FairpathWarning, InputError, SamplingWarning
 from fairpath.estimate import CAUTION, PriceResult, price, price_many
 from fairpath.greeks import GreeksResult, greek_profile, greeks
+from fairpath.laws import EmpiricalLaw, Law, NormalLaw, StudentT
 from fairpath.market import Asset, Correlation, DiscountCurve, Market, VolCurve, load_market
 from fairpath.products import (
     REGISTRY,
@@ -28,7 +29,7 @@ __version__ = "0.1.0"
 
 __all__ = [
     "CAUTION", "REGISTRY", "Asian", "Asset", "Autocallable", "Barrier", "Basket", "Correlation",
-    "Digital", "DiscountCurve", "European",
+    "Digital", "DiscountCurve", "EmpiricalLaw", "European", "Law", "NormalLaw", "StudentT",
     "FairpathError", "FairpathWarning", "GreeksResult", "InputError", "Market", "PriceResult",
     "Product",
     "SamplingWarning", "SolveResult", "VolCurve", "load_market", "load_product", "price",

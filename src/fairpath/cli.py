@@ -56,6 +56,38 @@ def _add_mc_options(p: argparse.ArgumentParser) -> None:
                         "(default %(default)s)")
 
 
+def _add_law_options(p: argparse.ArgumentParser, compare: bool = False) -> None:
+    from fairpath.laws import LAW_KINDS
+
+    p.add_argument("--law", choices=LAW_KINDS, default=None,
+                   help="replace every asset's shock law in the market file (a what-if)")
+    if compare:
+        p.add_argument("--compare-law", choices=LAW_KINDS, default=None,
+                       help="add a column: each product priced under this law too")
+    p.add_argument("--dof", type=_finite_float, default=None,
+                   help="degrees of freedom of a student-t law (above 2)")
+    p.add_argument("--history", default=None,
+                   help="CSV of daily closes for an empirical law")
+    p.add_argument("--column", default="close",
+                   help="column of closes in --history (default %(default)s)")
+
+
+def _law(args, kind: str | None, flag: str):
+    from fairpath.laws import law_from_options
+
+    if kind is None:
+        return None
+    return law_from_options(kind, dof=args.dof, history=args.history, column=args.column,
+                            flag=flag)
+
+
+def _market(args):
+    """The market file, with the shock law of ``--law`` when one is given."""
+    market = load_market(args.market)
+    law = _law(args, getattr(args, "law", None), "--law")
+    return market if law is None else market.with_law(law)
+
+
 def build_parser() -> argparse.ArgumentParser:
     ap = _Parser(prog="fairpath", description="Monte Carlo fair values with error bars for "
                  "options and structured notes.", epilog=estimate.CAUTION)
@@ -71,6 +103,7 @@ def build_parser() -> argparse.ArgumentParser:
                    help="double the paths until the standard error is at or below this")
     p.add_argument("--max-paths", type=_positive_int, default=estimate.DEFAULT_MAX_PATHS,
                    help="cap for --target-stderr (default %(default)s)")
+    _add_law_options(p)
     p.add_argument("--json", action="store_true", help="print one JSON object")
 
     g = sub.add_parser("greeks", help="delta, gamma, vega, rho, theta with standard errors")
@@ -80,6 +113,7 @@ def build_parser() -> argparse.ArgumentParser:
     g.add_argument("--method", choices=("bump", "pathwise", "lr", "auto"), default="auto",
                    help="bump-and-revalue on common random numbers, pathwise, likelihood "
                         "ratio, or the best available per Greek (default %(default)s)")
+    _add_law_options(g)
     g.add_argument("--json", action="store_true", help="print one JSON object")
 
     c = sub.add_parser("check", help="is each dealer quote in a CSV fair, rich or cheap?")
@@ -89,6 +123,7 @@ def build_parser() -> argparse.ArgumentParser:
                    help="vols moved down and up by this for the band (default %(default)s)")
     c.add_argument("--report", default=None, help="write a self-contained HTML report here")
     _add_mc_options(c)
+    _add_law_options(c, compare=True)
     c.add_argument("--json", action="store_true", help="print a JSON list")
 
     s = sub.add_parser("solve", help="the value of a product key that makes the price a target")
@@ -98,6 +133,7 @@ def build_parser() -> argparse.ArgumentParser:
                    help="numeric product key to solve for (coupon, strike, barrier, ...)")
     s.add_argument("--target", type=_finite_float, required=True, help="target price")
     _add_mc_options(s)
+    _add_law_options(s)
     s.add_argument("--json", action="store_true", help="print one JSON object")
 
     v = sub.add_parser("validate", help="Monte Carlo against the closed forms, with z-scores")
@@ -144,7 +180,7 @@ def main(argv: list[str] | None = None) -> int:
 
 
 def _price(args) -> int:
-    market = load_market(args.market)
+    market = _market(args)
     product = load_product(args.product)
     res = estimate.price(product, market, paths=args.paths, sampler=args.sampler,
                          seed=args.seed, antithetic=args.antithetic,
@@ -167,14 +203,17 @@ def _emit(res, as_json: bool) -> int:
 def _check(args) -> int:
     from fairpath.quotes import check_quotes, write_report
 
-    market = load_market(args.market)
+    market = _market(args)
+    other = _law(args, args.compare_law, "--compare-law")
     checks = check_quotes(args.quotes, market, vol_band=args.vol_band, paths=args.paths,
-                          sampler=args.sampler, seed=args.seed)
+                          sampler=args.sampler, seed=args.seed, compare_law=other)
     if args.report:
         write_report(args.report, checks, market,
                      {"quotes": args.quotes, "market": args.market, "paths": args.paths,
                       "sampler": args.sampler, "seed": args.seed if args.seed is not None
-                      else "default", "vol band": args.vol_band})
+                      else "default", "vol band": args.vol_band,
+                      "shock law": "market file" if args.law is None else args.law,
+                      "comparison law": "none" if other is None else other.describe()})
     if args.json:
         print(json.dumps([c.to_dict() for c in checks]))
         return 0
@@ -196,6 +235,9 @@ def _check(args) -> int:
         if c.fair_coupon is not None:
             print(f"{'':<34} coupon {c.coupon:.4%}, fair coupon at the quote "
                   f"{c.fair_coupon:.4%}")
+        if c.other_price is not None:
+            print(f"{'':<34} under the {c.other_law} law: {c.other_price:.4f} "
+                  f"(stderr {c.other_stderr:.4f}, {c.other_price - c.price:+.4f})")
     if args.report:
         print(f"\nreport written to {args.report}")
     print(f"\n{estimate.CAUTION}")
@@ -205,7 +247,7 @@ def _check(args) -> int:
 def _greeks(args) -> int:
     from fairpath.greeks import greeks
 
-    market = load_market(args.market)
+    market = _market(args)
     product = load_product(args.product)
     res = greeks(product, market, paths=args.paths, sampler=args.sampler, seed=args.seed,
                  method=args.method, replicates=args.replicates, source=args.product)
@@ -215,7 +257,7 @@ def _greeks(args) -> int:
 def _solve(args) -> int:
     from fairpath.solve import solve
 
-    market = load_market(args.market)
+    market = _market(args)
     product = load_product(args.product)
     res = solve(product, market, args.key, args.target, paths=args.paths, sampler=args.sampler,
                 seed=args.seed, replicates=args.replicates, source=args.product)

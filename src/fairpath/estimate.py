@@ -221,6 +221,9 @@ class Simulation:
             daily = p.daily_until()
             if daily is not None:
                 future.update(weekdays_between(val, daily))
+        if future and not self.model.normal:
+            # a non-normal law is a law of daily shocks: step on every weekday
+            future.update(weekdays_between(val, max(future)))
         self.grid_dates = tuple(sorted(future))
         self.grid_times = np.atleast_1d(market.time(self.grid_dates)).astype(float) \
             if self.grid_dates else np.zeros(0)
@@ -411,6 +414,20 @@ def combine(moments: dict[Block, Moments], blocks: list[Block], controls: list[C
                     tuple(controls[i].name for i in chosen), vrf, tuple(notes))
 
 
+def law_notes_for(market: Market, names) -> list[str]:
+    """What a result says when some of its assets' shocks are not normal (empty otherwise)."""
+    odd = market.non_normal(names)
+    if not odd:
+        return []
+    from fairpath.laws import LAW_CLIP
+
+    laws = "; ".join(f"{n}: {market.asset(n).law.describe()}" for n in odd)
+    return [f"return laws: {laws}; daily (weekday) steps, each shock scaled to the asset's vol "
+            f"with its own martingale correction so forwards are the market's; tails clipped at "
+            f"probability {LAW_CLIP:g} each side"
+            + ("; assets correlated through a Gaussian copula" if len(names) > 1 else "")]
+
+
 # ---------------------------------------------------------------------------------------------
 # Public entry point
 # ---------------------------------------------------------------------------------------------
@@ -487,9 +504,16 @@ def price_many(products: list[Product], market: Market, *, paths: int = DEFAULT_
     for p in products:
         p.check(market, source or p.source)
     controls = [p.controls(market) if control else [] for p in products]
+    law_notes = law_notes_for(market, products[0].underlyings())
+    if law_notes:
+        dropped = {c.name for cs in controls for c in cs if not c.model_free}
+        controls = [[c for c in cs if c.model_free] for cs in controls]
+        if dropped:
+            law_notes.append("closed-form control variates that assume normal returns switched "
+                             f"off ({'; '.join(sorted(dropped))})")
     sim = Simulation(products, market, smp, controls, source)
     sim.progress = progress
-    notes: list[str] = []
+    notes: list[str] = list(law_notes)
     dim = len(sim.names) * sim.steps
     if smp.name == "sobol" and dim > SOBOL_MAX_DIM:
         msg = (f"the Sobol dimension {dim} ({sim.steps} dates x {len(sim.names)} assets) exceeds "

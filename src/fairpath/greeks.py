@@ -46,7 +46,14 @@ import numpy as np
 
 from fairpath.dates import year_fraction
 from fairpath.errors import InputError
-from fairpath.estimate import CAUTION, DEFAULT_PATHS, Moments, Simulation, merge_all
+from fairpath.estimate import (
+    CAUTION,
+    DEFAULT_PATHS,
+    Moments,
+    Simulation,
+    law_notes_for,
+    merge_all,
+)
 from fairpath.market import Market
 from fairpath.models import GBM, simulate_log_levels
 from fairpath.products.base import PathSet, Product
@@ -315,11 +322,17 @@ def greeks(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
                          "the Greeks are those of a fixed amount", source=source)
     use_pathwise = method in ("pathwise", "auto") and product.has_pathwise(market)
     first_var = GBM.from_market(market, names).steps(runner.sim.grid_times[:1]).variance[:, 0]
+    odd_laws = market.non_normal(names)
     use_lr = (method == "lr" or (method == "auto" and product.payoff_jumps)) and \
-        bool(np.all(first_var > 0)) and product.score_safe()
+        bool(np.all(first_var > 0)) and product.score_safe() and not odd_laws
     if method == "lr" and not use_lr:
-        notes.append("no likelihood-ratio estimator here (the first step has no variance, or "
-                     "the payoff uses today's spot directly): bumps used")
+        notes.append("no likelihood-ratio estimator here (the first step has no variance, the "
+                     "payoff uses today's spot directly, or a shock law is not normal, so the "
+                     "normal score does not apply): bumps used")
+    if odd_laws:
+        notes.extend(law_notes_for(market, names))
+        if use_pathwise:
+            notes.append("pathwise vega needs normal shocks: vega is bumped")
     if method == "pathwise" and not use_pathwise:
         notes.append(f"no pathwise estimator for {product.kind}: bump-and-revalue used")
 

@@ -23,6 +23,7 @@ import numpy as np
 from fairpath.dates import DAY_COUNTS, parse_tenor, year_fraction
 from fairpath.errors import InputError
 from fairpath.inputs import Table, did_you_mean, read_toml
+from fairpath.laws import NORMAL, Law, parse_law
 
 #: Tolerance on the smallest eigenvalue of a correlation matrix (rounding in hand-typed files).
 PSD_TOLERANCE = 1e-10
@@ -158,12 +159,14 @@ def integrate_vol_product(a: VolCurve, b: VolCurve, t0, t1):
 # ---------------------------------------------------------------------------------------------
 @dataclass(frozen=True, slots=True)
 class Asset:
-    """One underlying: spot, Black vol term structure, continuous dividend yield."""
+    """One underlying: spot, Black vol term structure, continuous dividend yield, and the law
+    of its one-step log-return shocks (normal by default; see :mod:`fairpath.laws`)."""
 
     name: str
     spot: float
     vol: VolCurve
     dividend_yield: float = 0.0
+    law: Law = NORMAL
 
     def __post_init__(self):
         if not (np.isfinite(self.spot) and self.spot > 0):
@@ -255,6 +258,18 @@ class Market:
         return dataclasses.replace(
             self, assets=tuple(asset if a.name == asset.name else a for a in self.assets))
 
+    def with_law(self, law: Law, names=None) -> Market:
+        """The market with every asset's (or the named assets') shock law replaced."""
+        names = self.asset_names if names is None else tuple(names)
+        for n in names:
+            self.asset(n)
+        return dataclasses.replace(self, assets=tuple(
+            dataclasses.replace(a, law=law) if a.name in names else a for a in self.assets))
+
+    def non_normal(self, names) -> tuple[str, ...]:
+        """The named assets whose shock law is not normal."""
+        return tuple(n for n in names if not self.asset(n).law.is_normal)
+
 
 # ---------------------------------------------------------------------------------------------
 # Loading
@@ -327,8 +342,12 @@ def load_market(path: str | Path) -> Market:
         else:
             raise a.error("vol", "missing required key (or 'vol_tenors' + 'vols')")
         q = a.number("dividend_yield", 0.0)
+        law = NORMAL
+        if a.has("law"):
+            law = parse_law(a.raw("law"), base_dir=Path(src).parent, source=src,
+                            key=a.key("law"))
         a.finish()
-        assets.append(Asset(name, spot, vol, q))
+        assets.append(Asset(name, spot, vol, q, law))
 
     corr = None
     ctab = top.table("correlation", None)

@@ -8,6 +8,12 @@ Under the risk-neutral measure each asset follows ``dS/S = (r(t) - q) dt + sigma
 
 which the engine samples exactly from the lower-triangular factor of that covariance, however
 long the step (no discretisation error on the product's dates).
+
+An asset whose shock law is not normal (:mod:`fairpath.laws`) is stepped on the weekday grid:
+the step's correlated normals (Gaussian copula) go through the law's inverse transform, are
+scaled by the step's standard deviation ``sqrt(int sigma^2 dt)``, and the drift becomes
+``log(F(t1) / F(t0)) - log E[exp(sd X)]``, the law's own exponential moment, so the forward is
+still the market's.
 """
 
 from __future__ import annotations
@@ -16,6 +22,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from fairpath.laws import Law
 from fairpath.market import Market, integrate_vol_product
 
 
@@ -27,6 +34,10 @@ class StepParameters:
     drift: np.ndarray
     factor: np.ndarray
     variance: np.ndarray  # (assets, steps): integrated variance of each asset over each step
+    #: per asset, its shock law, or None when every asset is normal (the exact GBM path)
+    laws: tuple[Law, ...] | None = None
+    #: (steps, assets, assets): factor of each step's correlation (copula), with ``laws``
+    corr_factor: np.ndarray | None = None
 
 
 @dataclass(frozen=True, slots=True)
@@ -60,6 +71,15 @@ class GBM:
     def spots(self) -> np.ndarray:
         return np.array([self.market.asset(n).spot for n in self.names])
 
+    @property
+    def laws(self) -> tuple[Law, ...]:
+        return tuple(self.market.asset(n).law for n in self.names)
+
+    @property
+    def normal(self) -> bool:
+        """Are all the assets' shocks normal (exact GBM steps of any length)?"""
+        return all(law.is_normal for law in self.laws)
+
     def steps(self, times: np.ndarray) -> StepParameters:
         """Exact step parameters on the grid ``times`` (strictly increasing, all > 0)."""
         times = np.asarray(times, dtype=float)
@@ -76,9 +96,15 @@ class GBM:
         var = np.stack([cov[:, i, i] for i in range(n_a)])
         logf = np.stack([np.log(self.market.forward(n, np.concatenate([[0.0], times])))
                          for n in self.names])
-        drift = np.diff(logf, axis=1) - 0.5 * var
         factor = np.stack([psd_cholesky(cov[k]) for k in range(n_s)])
-        return StepParameters(times, drift, factor, var)
+        if self.normal:
+            return StepParameters(times, np.diff(logf, axis=1) - 0.5 * var, factor, var)
+        sd = np.sqrt(var)
+        correction = np.stack([law.log_mgf(s) for law, s in zip(self.laws, sd, strict=True)])
+        with np.errstate(divide="ignore", invalid="ignore"):
+            corr_factor = np.where(sd.T[:, :, None] > 0, factor / sd.T[:, :, None], 0.0)
+        return StepParameters(times, np.diff(logf, axis=1) - correction, factor, var,
+                              self.laws, corr_factor)
 
 
 def psd_cholesky(c: np.ndarray, tol: float = 1e-14) -> np.ndarray:
@@ -108,6 +134,8 @@ def simulate_log_levels(params: StepParameters, spots: np.ndarray, z: np.ndarray
     of paths in the chunk (bit-identical results for any chunk size).
     """
     n_a = z.shape[1]
+    if params.laws is not None:
+        return _simulate_with_laws(params, spots, z)
     if n_a == 1:
         x = z
         x *= params.factor[:, 0, 0]
@@ -120,6 +148,25 @@ def simulate_log_levels(params: StepParameters, spots: np.ndarray, z: np.ndarray
                 acc += z[:, b, :] * params.factor[:, a, b]
             acc += params.drift[a]
             x[:, a, :] = acc
+    np.cumsum(x, axis=2, out=x)
+    x += np.log(spots)[None, :, None]
+    return x
+
+
+def _simulate_with_laws(params: StepParameters, spots: np.ndarray, z: np.ndarray) -> np.ndarray:
+    """Log levels when some shock law is not normal: correlated normals (Gaussian copula), each
+    asset's inverse transform, scaled by the step's standard deviation, plus the drift."""
+    n_a = z.shape[1]
+    sd = np.sqrt(params.variance)
+    x = np.empty_like(z)
+    for a in range(n_a):
+        acc = z[:, 0, :] * params.corr_factor[:, a, 0]
+        for b in range(1, a + 1):
+            acc += z[:, b, :] * params.corr_factor[:, a, b]
+        params.laws[a].shocks(acc, out=acc)
+        acc *= sd[a]
+        acc += params.drift[a]
+        x[:, a, :] = acc
     np.cumsum(x, axis=2, out=x)
     x += np.log(spots)[None, :, None]
     return x

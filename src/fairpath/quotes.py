@@ -34,6 +34,7 @@ from scipy.optimize import brentq
 
 from fairpath.errors import FairpathError, InputError
 from fairpath.estimate import CAUTION, DEFAULT_PATHS, price
+from fairpath.laws import Law
 from fairpath.market import Market, VolCurve
 from fairpath.products.base import Product
 from fairpath.products.loader import load_product
@@ -60,6 +61,10 @@ class QuoteCheck:
     name: str = ""
     status: str = "ok"
     message: str = ""
+    #: the price under a comparison shock law (``compare_law``), same random numbers
+    other_law: str | None = None
+    other_price: float | None = None
+    other_stderr: float | None = None
 
     def to_dict(self) -> dict:
         d = {k: getattr(self, k) for k in ("product", "quote", "price", "stderr", "low", "high",
@@ -67,6 +72,9 @@ class QuoteCheck:
         d.update(implied_vol_note=self.implied_vol_note, coupon=self.coupon,
                  fair_coupon=self.fair_coupon, name=self.name, status=self.status,
                  message=self.message)
+        if self.other_law is not None:
+            d.update(other_law=self.other_law, other_price=self.other_price,
+                     other_stderr=self.other_stderr)
         return d
 
 
@@ -106,8 +114,11 @@ def implied_vol(product: Product, market: Market, quote: float, **settings
 def check_quote(product: Product, market: Market, quote: float, *, vol_band: float = 0.01,
                 tolerance: float = 0.0, paths: int = DEFAULT_PATHS, sampler: str = "sobol",
                 seed: int | None = None, implied: bool = True, label: str = "",
-                source: str | None = None) -> QuoteCheck:
+                source: str | None = None, compare_law: Law | None = None) -> QuoteCheck:
     """Check one quote (see the module notes).
+
+    ``compare_law``: also price the product with this shock law for every asset it uses (same
+    random numbers), to show how much of the value is the law of returns.
 
     Examples
     --------
@@ -146,9 +157,14 @@ def check_quote(product: Product, market: Market, quote: float, *, vol_band: flo
             fair = solve(product, market, "coupon", quote, **settings).value
         except InputError as exc:
             note = (note + "; " if note else "") + f"no fair coupon: {exc.problem}"
+    other = {}
+    if compare_law is not None:
+        alt = price(product, market.with_law(compare_law, names), **settings)
+        other = dict(other_law=compare_law.describe(), other_price=alt.price,
+                     other_stderr=alt.stderr)
     return QuoteCheck(label or product.label(), quote, base.price, se, low, high, diff,
                       z if math.isfinite(z) else None, verdict, iv, note, coupon, fair,
-                      product.label())
+                      product.label(), **other)
 
 
 def read_quotes(path: str | Path) -> list[dict]:
@@ -251,22 +267,27 @@ def write_report(path: str | Path, checks: list[QuoteCheck], market: Market, set
     def fmt(v, spec=".6g"):
         return "" if v is None else format(v, spec)
 
+    alt = next((c.other_law for c in checks if c.other_law is not None), None)
     head = ("product", "quote", "price", "stderr", "low", "high", "difference", "z",
-            "verdict", "implied vol", "coupon / fair coupon", "note")
+            "verdict", "implied vol", "coupon / fair coupon",
+            *((f"price under the {html.escape(alt)} law",) if alt else ()), "note")
     body = []
     for c in checks:
         if c.status != "ok":
             body.append(f"<tr><td>{html.escape(c.product)}</td><td>{fmt(c.quote)}</td>"
-                        f"<td colspan='10' class='err'>error: {html.escape(c.message)}</td></tr>")
+                        f"<td colspan='{len(head) - 2}' class='err'>error: "
+                        f"{html.escape(c.message)}</td></tr>")
             continue
         cpn = "" if c.coupon is None else f"{c.coupon:.4%} / {fmt(c.fair_coupon, '.4%')}"
+        law_col = (f"{fmt(c.other_price)} ({fmt(c.other_stderr, '.3g')})",) if alt else ()
         body.append("<tr>" + "".join(f"<td>{html.escape(str(v))}</td>" for v in (
             c.product, fmt(c.quote), fmt(c.price), fmt(c.stderr, ".3g"), fmt(c.low),
             fmt(c.high), fmt(c.difference, ".4g"), fmt(c.z, ".2f"), c.verdict,
-            fmt(c.implied_vol, ".4%"), cpn, c.implied_vol_note)) + "</tr>")
+            fmt(c.implied_vol, ".4%"), cpn, *law_col, c.implied_vol_note)) + "</tr>")
     assets = "".join(f"<tr><td>{html.escape(a.name)}</td><td>{a.spot:g}</td>"
                      f"<td>{', '.join(f'{v:g}' for v in a.vol.vols)}</td>"
-                     f"<td>{a.dividend_yield:g}</td></tr>" for a in market.assets)
+                     f"<td>{a.dividend_yield:g}</td><td>{html.escape(a.law.describe())}</td>"
+                     "</tr>" for a in market.assets)
     curve = ", ".join(f"{t:.3g}y: {r:.4%}" for t, r in zip(market.discount.times,
                                                           market.discount.zero_rates,
                                                           strict=True))
@@ -290,7 +311,8 @@ td:last-child{{text-align:left;max-width:24em;font-size:90%}}.err{{color:#b3261e
 <h2>Market inputs</h2>
 <p>valuation date {market.valuation_date}, currency {html.escape(market.currency)},
 day count {market.day_count}; discount zero rates {html.escape(curve)}</p>
-<table><tr><th>asset</th><th>spot</th><th>vol(s)</th><th>dividend yield</th></tr>{assets}</table>
+<table><tr><th>asset</th><th>spot</th><th>vol(s)</th><th>dividend yield</th>
+<th>shock law</th></tr>{assets}</table>
 <h2>Run settings</h2><table>{run}</table>
 </body></html>
 """

@@ -39,6 +39,7 @@ import numpy as np
 
 from fairpath.dates import schedule_dates
 from fairpath.errors import FairpathWarning, InputError
+from fairpath.laws import BRIDGE_UNDER_LAW
 from fairpath.market import Market
 from fairpath.products.base import PathSet, Product, asset_list, read_asset_names
 
@@ -257,6 +258,8 @@ class Autocallable(Product):
                        + (f", {self.coupons_owed} coupon(s) owed" if self.coupons_owed else ""))
         if self.breached_now(market):
             out.append("the protection barrier is already breached (knocked in)")
+        elif self.protection_monitoring == "continuous" and market.non_normal(self.assets):
+            out.append(BRIDGE_UNDER_LAW)
         return tuple(out)
 
     # -- payoff ----------------------------------------------------------------------------

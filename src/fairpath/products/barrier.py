@@ -36,6 +36,7 @@ from scipy.stats import invgauss
 from fairpath import closed_form as cf
 from fairpath.dates import schedule_dates, weekdays_between
 from fairpath.errors import InputError
+from fairpath.laws import BRIDGE_UNDER_LAW
 from fairpath.market import Market
 from fairpath.products.base import ControlVariate, PathSet
 from fairpath.products.vanilla import OneAssetAtExpiry, _bsm_args
@@ -126,6 +127,8 @@ class Barrier(OneAssetAtExpiry):
     def notes(self, market: Market) -> tuple[str, ...]:
         spot = market.asset(self.asset).spot
         if not self.breached(spot):
+            if self.monitoring == "continuous" and market.non_normal((self.asset,)):
+                return (BRIDGE_UNDER_LAW,)
             return ()
         side = "at or below" if self.direction == "down" else "at or above"
         if self.effect == "in":

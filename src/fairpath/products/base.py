@@ -84,6 +84,9 @@ class ControlVariate:
     name: str
     values: Callable[[PathSet], np.ndarray]
     mean: float
+    #: is the known mean right under any shock law (a discounted forward), not only under
+    #: normal returns (a closed form)? Controls that are not are dropped for other laws.
+    model_free: bool = False
 
 
 @dataclass(frozen=True, slots=True)
@@ -189,7 +192,8 @@ class Product:
 
             def values(ps: PathSet, n=n, last=last, df=df):
                 return ps.level(n, last) * df
-            out.append(ControlVariate(f"discounted {n} on {last}", values, mean))
+            out.append(ControlVariate(f"discounted {n} on {last}", values, mean,
+                                      model_free=True))
         return out
 
     def closed_form(self, market: Market) -> float | None:
@@ -203,13 +207,14 @@ class Product:
 def level_sensitivities(ps: PathSet) -> tuple[np.ndarray, np.ndarray | None]:
     """Derivatives of the levels on the observation dates, shape (paths, assets, dates).
 
-    ``dS_t/dS_0 = S_t / S_0`` (any vol term structure); when every asset's vol is flat,
+    ``dS_t/dS_0 = S_t / S_0`` (any vol term structure or shock law); when every asset's vol is
+    flat and its shocks normal,
     ``dS_t/dsigma = S_t (W_t - sigma t)`` with ``W_t = (log S_t - log F_t + sigma^2 t / 2) / sigma``
     recovered from the path (else None).
     """
     d_spot = ps.levels / ps.spots[None, :, None]
     vols = [ps.market.asset(n).vol for n in ps.names]
-    if not all(v.is_flat and v.vols[0] > 0 for v in vols):
+    if not all(v.is_flat and v.vols[0] > 0 for v in vols) or ps.market.non_normal(ps.names):
         return d_spot, None
     t = np.array([max(ps.market.time(d), 0.0) for d in ps.dates])
     sig = np.array([v.vols[0] for v in vols])[None, :, None]
