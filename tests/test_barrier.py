@@ -10,7 +10,7 @@ References, each named again beside its check:
   2nd ed. (2007), chapter 4 (recalled values, see HAUG_TABLE);
 * Broadie, Glasserman & Kou (1997) for discrete monitoring, as
   ``fairpath.closed_form.discrete_barrier_price`` (an approximation: allowance
-  ``fairpath.validate.BGK_ALLOWANCE``), and an independent brute-force simulation written
+  ``fairpath.closed_form.BGK_ACCURACY``), and an independent brute-force simulation written
   here (plain numpy, exact GBM steps on the monitoring dates, pseudo-random);
 * Black-Scholes-Merton for the vanilla limits; the first-passage probability of Brownian
   motion with drift (reflection principle, e.g. Shreve, "Stochastic Calculus for Finance II",
@@ -35,7 +35,6 @@ from scipy.stats import norm
 
 import fairpath as fp
 from fairpath import closed_form as cf
-from fairpath.validate import BGK_ALLOWANCE
 
 VAL = date(2026, 12, 1)
 RIGHTS = ("call", "put")
@@ -329,12 +328,12 @@ def test_discrete_monitoring(case):
     T = m.time(SIX_MONTHS)
     if has_bgk:
         # Broadie-Glasserman-Kou shift (fairpath.closed_form.discrete_barrier_price), an
-        # approximation: the project's allowance BGK_ALLOWANCE (3%) of the price, see
-        # fairpath/validate.py
+        # approximation: the project's allowance cf.BGK_ACCURACY (3%) of the price, see
+        # fairpath/closed_form.py
         bgk = cf.discrete_barrier_price(100.0, K, H, T, 0.05, 0.02, 0.25, right, direction,
                                         effect, rebate, len(dates))
         assert p.closed_form(m) == pytest.approx(bgk, rel=1e-12)
-        assert within(res, bgk, allowance=BGK_ALLOWANCE * abs(bgk)), (*info, bgk)
+        assert within(res, bgk, allowance=cf.BGK_ACCURACY * abs(bgk)), (*info, bgk)
     # discrete monitoring is not continuous monitoring: fewer chances to hit
     cont = cf.barrier_price(100.0, K, H, T, 0.05, 0.02, 0.25, right, direction, effect, rebate)
     if effect == "out" and rebate == 0.0:

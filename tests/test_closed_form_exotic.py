@@ -21,7 +21,9 @@ import QuantLib as ql
 from hypothesis import given, settings
 from hypothesis import strategies as st
 from scipy.integrate import quad
+from scipy.stats import norm
 
+from fairpath import closed_form as cf
 from fairpath.closed_form import (
     BGK_BETA,
     barrier_price,
@@ -617,3 +619,85 @@ def test_other_bad_input_raises():
         exchange_lognormal(100.0, 100.0, 0.1, 0.9, "straddle")
     with pytest.raises(InputError, match="broadcast"):
         barrier_price(np.ones(3), np.ones(2), 90.0, 1.0, 0.05, 0.0, 0.2, "call", "down", "out")
+
+
+# ---------------------------------------------------------------------------------------------
+# Stulz's two-asset min/max options, against QuantLib's StulzEngine (QuantLib 1.44)
+# ---------------------------------------------------------------------------------------------
+def _ql_bsm_process(spot, q, vol, r=0.05):
+    today = ql.Date(1, 12, 2026)
+    ql.Settings.instance().evaluationDate = today
+    dc = ql.Actual365Fixed()
+    return ql.BlackScholesMertonProcess(
+        ql.QuoteHandle(ql.SimpleQuote(spot)),
+        ql.YieldTermStructureHandle(ql.FlatForward(today, q, dc)),
+        ql.YieldTermStructureHandle(ql.FlatForward(today, r, dc)),
+        ql.BlackVolTermStructureHandle(ql.BlackConstantVol(today, ql.NullCalendar(), vol, dc)))
+
+
+@pytest.mark.parametrize("rho", [-0.5, 0.0, 0.6, 0.95])
+@pytest.mark.parametrize("combine", ["min", "max"])
+@pytest.mark.parametrize("right", ["call", "put"])
+def test_stulz_against_quantlib(rho, combine, right):
+    # reference: QuantLib's StulzEngine (Stulz 1982) for a two-asset min/max basket option
+    p1, p2 = _ql_bsm_process(100.0, 0.02, 0.25), _ql_bsm_process(90.0, 0.01, 0.35)
+    payoff = (ql.MinBasketPayoff if combine == "min" else ql.MaxBasketPayoff)(
+        ql.PlainVanillaPayoff(ql.Option.Call if right == "call" else ql.Option.Put, 95.0))
+    opt = ql.BasketOption(payoff, ql.EuropeanExercise(ql.Date(1, 12, 2027)))
+    opt.setPricingEngine(ql.StulzEngine(p1, p2, rho))
+    t = 365 / 365
+    mine = cf.two_asset_min_max(100.0, 90.0, 95.0, t, 0.05, 0.02, 0.01, 0.25, 0.35, rho,
+                                right, combine)
+    assert mine == pytest.approx(opt.NPV(), abs=1e-9)
+
+
+def test_bivariate_normal_cdf_known_values():
+    # closed forms: M(0, 0; rho) = 1/4 + arcsin(rho) / (2 pi) (Sheppard); independence;
+    # the comonotone limit M(a, b; 1) = Phi(min(a, b))
+    for rho in (-0.9, -0.3, 0.0, 0.4, 0.99):
+        assert cf.bivariate_normal_cdf(0.0, 0.0, rho) == pytest.approx(
+            0.25 + math.asin(rho) / (2 * math.pi), abs=1e-12)
+    assert cf.bivariate_normal_cdf(0.3, -1.2, 0.0) == pytest.approx(
+        norm.cdf(0.3) * norm.cdf(-1.2), abs=1e-14)
+    assert cf.bivariate_normal_cdf(0.3, -1.2, 1.0) == pytest.approx(norm.cdf(-1.2), abs=1e-14)
+
+
+# ---------------------------------------------------------------------------------------------
+# Discretely monitored barriers by quadrature
+# ---------------------------------------------------------------------------------------------
+WEEKLY_TIMES = [7 * (i + 1) / 365 for i in range(26)]
+
+
+@pytest.mark.parametrize("args", [
+    (100.0, 90.0, "put", "down", "in"), (95.0, 115.0, "call", "up", "out"),
+    (100.0, 95.0, "call", "down", "out"), (100.0, 110.0, "put", "up", "in")])
+def test_discrete_quadrature_converges_and_bgk_is_within_its_stated_accuracy(args):
+    K, H, right, direction, effect = args
+    T = WEEKLY_TIMES[-1]
+    coarse, fine = (cf.discrete_barrier_quadrature(100.0, K, H, WEEKLY_TIMES, T, 0.08, 0.04,
+                                                   0.25, right, direction, effect, points=n)
+                    for n in (2001, 8001))
+    assert abs(coarse - fine) < 2e-5  # quadrature error, measured by refining the grid
+    # Broadie-Glasserman-Kou (1997) shift: an approximation, within its stated accuracy
+    bgk = cf.discrete_barrier_price(100.0, K, H, T, 0.08, 0.04, 0.25, right, direction, effect,
+                                    0.0, 26)
+    assert abs(bgk - fine) <= cf.BGK_ACCURACY * fine
+
+
+def test_discrete_quadrature_tends_to_continuous_monitoring():
+    # with 2000 dates the BGK-shifted Reiner-Rubinstein price is accurate to O(1/m)
+    # (Broadie, Glasserman & Kou 1997); the quadrature agrees to 1e-5 of the spot
+    T = 0.5
+    times = np.linspace(T / 2000, T, 2000)
+    quad = cf.discrete_barrier_quadrature(100.0, 100.0, 95.0, times, T, 0.08, 0.04, 0.25,
+                                          "call", "down", "out")
+    bgk = cf.discrete_barrier_price(100.0, 100.0, 95.0, T, 0.08, 0.04, 0.25, "call", "down",
+                                    "out", 0.0, 2000)
+    assert abs(quad - bgk) < 1e-4
+    # and knock-in + knock-out = vanilla (parity, exact by construction of both)
+    ki = cf.discrete_barrier_quadrature(100.0, 100.0, 95.0, times[::50], T, 0.08, 0.04, 0.25,
+                                        "call", "down", "in")
+    ko = cf.discrete_barrier_quadrature(100.0, 100.0, 95.0, times[::50], T, 0.08, 0.04, 0.25,
+                                        "call", "down", "out")
+    assert ki + ko == pytest.approx(cf.bsm_price(100.0, 100.0, T, 0.08, 0.04, 0.25, "call"),
+                                    abs=1e-12)

@@ -190,11 +190,12 @@ def test_basket_has_cross_gammas_and_keeps_initial_levels_fixed():
         assert abs(a.value - b.value) <= 4 * np.hypot(a.stderr, b.stderr) + 2e-3 * abs(b.value)
 
 
-def test_vol_bump_below_zero_is_refused():
-    m = market(vol=0.005)
+def test_low_vol_is_bumped_relative_to_its_size_and_zero_vol_is_refused():
     p = fp.European(asset="NORDA", right="call", strike=100.0, expiry=EXPIRY)
+    low = fp.greeks(p, market(vol=0.005), paths=4096, seed=3, method="bump")
+    assert "0.0025" in low.bumps["vol"]  # half of the 0.5% vol, not one full vol point
     with pytest.raises(fp.InputError, match="non-positive"):
-        fp.greeks(p, m, paths=1024)
+        fp.greeks(p, market(vol=0.0), paths=1024)
 
 
 def test_cli_greeks_json_contract(capsys):

@@ -12,7 +12,11 @@ each other.
   :func:`geometric_asian_continuous`.
 * Gap options: :func:`gap_option` (the capital-at-risk leg of a note with a knock-in at maturity).
 * Single barriers: :func:`barrier_price` (continuous monitoring),
-  :func:`discrete_barrier_price` and :func:`bgk_barrier` (continuity correction).
+  :func:`discrete_barrier_price` and :func:`bgk_barrier` (continuity correction), and
+  :func:`discrete_barrier_quadrature`, the exact price under discrete monitoring on given dates
+  by repeated Gaussian quadrature (the reference for the correction's accuracy).
+* Two assets: :func:`bivariate_normal_cdf`, :func:`two_asset_min_max` (Stulz's options on the
+  minimum or maximum of two assets).
 
 Conventions (the project's contract)
 ------------------------------------
@@ -62,6 +66,10 @@ References
    Options", Journal of Financial and Quantitative Analysis 26(3), 1991, 377-389.
 .. [BGK97] M. Broadie, P. Glasserman and S. Kou, "A Continuity Correction for Discrete Barrier
    Options", Mathematical Finance 7(4), 1997, 325-349.
+.. [S82] R. M. Stulz, "Options on the Minimum or the Maximum of Two Risky Assets", Journal of
+   Financial Economics 10, 1982, 161-185 (in [H07], chapter 5).
+.. [AWDN03] A. D. Andricopoulos, M. Widdicks, P. W. Duck and D. P. Newton, "Universal Option
+   Valuation Using Quadrature Methods", Journal of Financial Economics 67, 2003, 447-471.
 """
 
 from __future__ import annotations
@@ -1060,6 +1068,13 @@ def bgk_barrier(barrier: ArrayLike, sigma: ArrayLike, dt: ArrayLike,
     return _out(_bgk(H, sig, dt_, direction))
 
 
+#: Stated accuracy of the Broadie-Glasserman-Kou shift, as a fraction of the price, for the
+#: weekly cases of the tests: against the exact quadrature (``discrete_barrier_quadrature``)
+#: the shift was off by 0.4% (a down-and-in put) and 2.4% (an up-and-out call whose barrier
+#: is about four weekly standard deviations above spot).
+BGK_ACCURACY = 0.03
+
+
 def _bgk(H: NDArray[np.float64], sig: NDArray[np.float64], dt: NDArray[np.float64],
          direction: str) -> NDArray[np.float64]:
     return H * np.exp(-_DIRECTION[direction] * BGK_BETA * sig * np.sqrt(dt))
@@ -1153,3 +1168,186 @@ def gap_option(spot: ArrayLike, strike: ArrayLike, trigger: ArrayLike, T: ArrayL
     asset = asset_or_nothing_price(spot, trigger, T, r, q, sigma, right)
     K = _as_float_array(strike, "strike", "gap_option")
     return _out(phi * (np.asarray(asset) - K * np.asarray(cash)))
+
+
+# --------------------------------------------------------------------------- two assets
+
+
+def bivariate_normal_cdf(a: float, b: float, rho: float) -> float:
+    """``P(X <= a, Y <= b)`` for standard normals with correlation ``rho``.
+
+    Plackett's identity ``dM/drho = phi_2(a, b; rho)`` integrated from 0, where the value is
+    ``Phi(a) Phi(b)``, by adaptive quadrature to about 1e-13.
+
+    Examples
+    --------
+    >>> round(bivariate_normal_cdf(0.0, 0.0, 0.5), 10)  # 1/4 + arcsin(rho) / (2 pi) = 1/3
+    0.3333333333
+    """
+    from scipy.integrate import quad
+
+    if not -1.0 <= rho <= 1.0:
+        raise InputError(f"must be in [-1, 1], got {rho}", source="bivariate_normal_cdf",
+                         key="rho")
+    if a == -np.inf or b == -np.inf:
+        return 0.0
+    if a == np.inf:
+        return float(ndtr(b))
+    if b == np.inf:
+        return float(ndtr(a))
+
+    def density(r: float) -> float:
+        one = 1.0 - r * r
+        if one <= 0.0:
+            return 0.0
+        return float(np.exp(-(a * a - 2.0 * r * a * b + b * b) / (2.0 * one))
+                     / (2.0 * np.pi * np.sqrt(one)))
+
+    extra, _ = quad(density, 0.0, rho, epsabs=1e-14, epsrel=1e-12, limit=200)
+    if abs(rho) == 1.0:  # the limit: comonotone or countermonotone normals
+        return float(ndtr(min(a, b)) if rho > 0 else max(ndtr(a) + ndtr(b) - 1.0, 0.0))
+    return float(ndtr(a) * ndtr(b) + extra)
+
+
+def two_asset_min_max(s1: float, s2: float, strike: float, T: float, r: float, q1: float,
+                      q2: float, sigma1: float, sigma2: float, rho: float, right: str,
+                      combine: str) -> float:
+    """European call or put on the minimum or maximum of two lognormal assets (Stulz 1982).
+
+    With ``b_i = r - q_i``, ``sigma^2 = sigma1^2 + sigma2^2 - 2 rho sigma1 sigma2``,
+    ``d = (ln(s1/s2) + (b1 - b2 + sigma^2/2) T) / (sigma sqrt(T))``,
+    ``y_i = (ln(s_i/K) + (b_i + sigma_i^2/2) T) / (sigma_i sqrt(T))``,
+    ``rho1 = (sigma1 - rho sigma2) / sigma``, ``rho2 = (sigma2 - rho sigma1) / sigma``:
+
+    ``call_min = s1 e^{-q1 T} M(y1, -d; -rho1) + s2 e^{-q2 T} M(y2, d - sigma sqrt(T); -rho2)
+    - K e^{-rT} M(y1 - sigma1 sqrt(T), y2 - sigma2 sqrt(T); rho)``,
+    ``call_max = s1 e^{-q1 T} M(y1, d; rho1) + s2 e^{-q2 T} M(y2, -d + sigma sqrt(T); rho2)
+    - K e^{-rT} (1 - M(-y1 + sigma1 sqrt(T), -y2 + sigma2 sqrt(T); rho))``
+    ([S82]; [H07] chapter 5). Puts by parity with the zero-strike call (the discounted
+    expected minimum or maximum): ``put = K e^{-rT} - call(0) + call(K)``.
+
+    Examples
+    --------
+    >>> mn = two_asset_min_max(100, 100, 100, 1.0, 0.05, 0.02, 0.02, 0.25, 0.25, 0.5,
+    ...                        "call", "min")
+    >>> mx = two_asset_min_max(100, 100, 100, 1.0, 0.05, 0.02, 0.02, 0.25, 0.25, 0.5,
+    ...                        "call", "max")
+    >>> v = bsm_price(100, 100, 1.0, 0.05, 0.02, 0.25, "call")
+    >>> round(mn + mx - 2 * v, 10)  # min + max = the two assets
+    0.0
+    """
+    source = "two_asset_min_max"
+    if combine not in ("min", "max"):
+        raise InputError(f"must be 'min' or 'max', got {combine!r}", source=source,
+                         key="combine")
+    phi = _phi(right, source)
+    if not (T > 0 and sigma1 > 0 and sigma2 > 0 and s1 > 0 and s2 > 0 and strike >= 0):
+        raise InputError("needs positive spots, vols and time, and a non-negative strike",
+                         source=source)
+    rt = np.sqrt(T)
+    sig = np.sqrt(max(sigma1**2 + sigma2**2 - 2 * rho * sigma1 * sigma2, 0.0))
+    if sig <= 0:
+        raise InputError("the two assets move together exactly (sigma of the ratio is 0)",
+                         source=source, key="rho")
+    b1, b2 = r - q1, r - q2
+    d = (np.log(s1 / s2) + (b1 - b2 + 0.5 * sig**2) * T) / (sig * rt)
+    rho1 = (sigma1 - rho * sigma2) / sig
+    rho2 = (sigma2 - rho * sigma1) / sig
+    f1, f2 = s1 * np.exp(-q1 * T), s2 * np.exp(-q2 * T)
+    M = bivariate_normal_cdf
+
+    def call(k: float) -> float:
+        if k <= 0:
+            if combine == "min":
+                return float(f1 * ndtr(-d) + f2 * ndtr(d - sig * rt))
+            return float(f1 * ndtr(d) + f2 * ndtr(-d + sig * rt))
+        y1 = (np.log(s1 / k) + (b1 + 0.5 * sigma1**2) * T) / (sigma1 * rt)
+        y2 = (np.log(s2 / k) + (b2 + 0.5 * sigma2**2) * T) / (sigma2 * rt)
+        dfk = k * np.exp(-r * T)
+        if combine == "min":
+            return float(f1 * M(y1, -d, -rho1) + f2 * M(y2, d - sig * rt, -rho2)
+                         - dfk * M(y1 - sigma1 * rt, y2 - sigma2 * rt, rho))
+        return float(f1 * M(y1, d, rho1) + f2 * M(y2, -d + sig * rt, rho2)
+                     - dfk * (1.0 - M(-y1 + sigma1 * rt, -y2 + sigma2 * rt, rho)))
+
+    if phi > 0:
+        return call(strike)
+    return float(strike * np.exp(-r * T) - call(0.0) + call(strike))
+
+
+# --------------------------------------------------------------------------- discrete barriers
+
+
+def discrete_barrier_quadrature(spot: float, strike: float, barrier: float, times, T: float,
+                                r: float, q: float, sigma: float, right: str, direction: str,
+                                effect: str, points: int = 4001) -> float:
+    """Exact price (to quadrature accuracy) of a barrier option monitored on given dates.
+
+    No rebate. The knock-out value is carried backwards from expiry on a uniform grid of
+    log-levels spanning the alive side of the barrier (the barrier a grid node): between two
+    monitoring times it is integrated against the exact Gaussian transition density of the
+    log-level (Simpson's rule, the convolution done by FFT), and at each monitoring time it is
+    set to zero beyond the barrier ([AWDN03]). From the last monitoring time to expiry the
+    value is the Black-Scholes-Merton vanilla. Knock-in = vanilla - knock-out. ``times`` are
+    the monitoring times in years, ``0 < t_1 < ... <= T``. Accuracy improves with ``points``
+    (odd); at 4001 it is about 1e-6 of the spot for the cases in the tests.
+
+    Examples
+    --------
+    >>> v = discrete_barrier_quadrature(100.0, 100.0, 95.0, [0.25, 0.5], 0.5, 0.08, 0.04,
+    ...                                 0.25, "call", "down", "out")
+    >>> 5.0 < v < bsm_price(100.0, 100.0, 0.5, 0.08, 0.04, 0.25, "call")
+    True
+    """
+    from scipy.signal import fftconvolve
+
+    source = "discrete_barrier_quadrature"
+    _barrier_kind(source, right, direction, effect)
+    times = np.asarray(times, dtype=float)
+    if times.ndim != 1 or not len(times) or times[0] <= 0 or np.any(np.diff(times) <= 0) \
+            or times[-1] > T + 1e-12:
+        raise InputError("monitoring times must increase strictly within (0, T]", source=source,
+                         key="times")
+    if points % 2 == 0 or points < 101:
+        raise InputError(f"must be an odd number >= 101, got {points}", source=source,
+                         key="points")
+    vanilla = float(bsm_price(spot, strike, T, r, q, sigma, right))
+    down = direction == "down"
+    h, x0 = np.log(barrier), np.log(spot)
+    if (down and spot <= barrier) or (not down and spot >= barrier):
+        out = 0.0  # already knocked out
+        return vanilla - out if effect == "in" else out
+    mu = r - q - 0.5 * sigma**2
+    width = 10.0 * sigma * np.sqrt(T) + abs(mu) * T
+    far = x0 + width if down else x0 - width
+    x = np.linspace(h, far, points) if down else np.linspace(far, h, points)
+    dx = x[1] - x[0]
+    w = np.full(points, 2.0)
+    w[1::2] = 4.0
+    w[0] = w[-1] = 1.0
+    w *= dx / 3.0
+    tail = T - times[-1]
+    if tail > 1e-12:
+        v = np.asarray(bsm_price(np.exp(x), strike, tail, r, q, sigma, right), dtype=float)
+    else:
+        k = np.exp(x) - strike
+        v = np.maximum(k if right == "call" else -k, 0.0)
+    # the barrier node itself carries the value's limit from the alive side: a single level
+    # has no probability, and this keeps the integrand continuous up to the grid's end
+    alive = x >= h if down else x <= h
+    v = np.where(alive, v, 0.0)
+    prev = np.concatenate([[0.0], times[:-1]])
+    for t0, t1 in zip(prev[::-1][:-1], times[::-1][:-1], strict=True):
+        dt = t1 - t0
+        s = sigma * np.sqrt(dt)
+        lag = np.arange(-(points - 1), points) * dx  # y - x over the grid
+        kern = np.exp(-0.5 * ((lag - mu * dt) / s) ** 2) / (s * np.sqrt(2 * np.pi))
+        # v_new(x_i) = sum_j w_j v(x_j) kern(x_j - x_i): a correlation, done as a convolution
+        conv = fftconvolve(w * v, kern[::-1], mode="full")
+        v = np.exp(-r * dt) * conv[points - 1: 2 * points - 1]
+        v = np.where(alive, v, 0.0)
+    dt = times[0]
+    s = sigma * np.sqrt(dt)
+    dens = np.exp(-0.5 * ((x - x0 - mu * dt) / s) ** 2) / (s * np.sqrt(2 * np.pi))
+    out = float(np.exp(-r * dt) * np.sum(w * v * dens))
+    return vanilla - out if effect == "in" else out

@@ -11,7 +11,7 @@ from ``w' Cov w / N`` for pseudo-random numbers. Never from the price's error.
 * delta_i = (V(S_i + h_i) - V(S_i - h_i)) / (2 h_i), gamma_i = (V+ - 2 V + V-) / h_i^2,
   ``h_i = SPOT_BUMP * S_i``; cross-gamma_ij from the four corners (+-h_i, +-h_j);
 * vega_i = (V(vol_i + dv) - V(vol_i - dv)) / (2 dv), every pillar of the asset moved by
-  ``dv = VOL_BUMP``;
+  ``dv = VOL_BUMP`` (one vol point, or half the lowest pillar vol when that is smaller);
 * rho = (V(r + dr) - V(r - dr)) / (2 dr), a parallel shift ``dr = RATE_BUMP`` of the zero curve;
 * theta = (V(valuation + 1 day) - V(valuation - 1 day)) / (2 days in years): the value change
   as the valuation date moves forward, per year, with the product's dates (and the simulation
@@ -161,12 +161,18 @@ def _bump_spot(market: Market, name: str, factor: float) -> Market:
     return market.with_asset(dataclasses.replace(a, spot=a.spot * factor))
 
 
-def _bump_vol(market: Market, name: str, dv: float, source: str | None) -> Market:
+def vol_bump(market: Market, name: str) -> float:
+    """The vega bump of an asset: one vol point, or half its lowest pillar vol when that is
+    below two points (so a low vol is bumped relative to its size, never through zero)."""
+    return min(VOL_BUMP, 0.5 * min(market.asset(name).vol.vols))
+
+
+def _bump_vol(market: Market, name: str, dv: float) -> Market:
     a = market.asset(name)
     vol = a.vol.shifted(dv)
     if min(vol.vols) <= 0:
-        raise InputError(f"the vega bump of {abs(dv):g} would make {name}'s vol non-positive "
-                         f"({min(vol.vols):g})", source=source, key=f"assets.{name}.vol")
+        raise InputError(f"a vega bump would make {name}'s vol non-positive: its vol is "
+                         f"{min(a.vol.vols):g}", source=market.source, key=f"assets.{name}.vol")
     return market.with_asset(dataclasses.replace(a, vol=vol))
 
 
@@ -297,9 +303,13 @@ def greeks(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
             for sb in (1, -1):
                 m2 = _bump_spot(_bump_spot(market, a, 1 + sa * SPOT_BUMP), b, 1 + sb * SPOT_BUMP)
                 scen.append((f"S{sa:+d}{sb:+d} {a}/{b}", m2))
+    dvs = {n: vol_bump(market, n) for n in names}
     for n in names:
-        scen.append((f"v+ {n}", _bump_vol(market, n, VOL_BUMP, source)))
-        scen.append((f"v- {n}", _bump_vol(market, n, -VOL_BUMP, source)))
+        scen.append((f"v+ {n}", _bump_vol(market, n, dvs[n])))
+        scen.append((f"v- {n}", _bump_vol(market, n, -dvs[n])))
+    if any(dv < VOL_BUMP for dv in dvs.values()):
+        bumps["vol"] = (f"{VOL_BUMP:g} absolute, central; half the lowest vol where that is "
+                        f"smaller ({', '.join(f'{n}: {dv:g}' for n, dv in dvs.items())})")
     scen.append(("r+", dataclasses.replace(market, discount=market.discount.shifted(RATE_BUMP))))
     scen.append(("r-", dataclasses.replace(market, discount=market.discount.shifted(-RATE_BUMP))))
     later = dataclasses.replace(market, valuation_date=market.valuation_date + timedelta(days=1))
@@ -407,7 +417,7 @@ def greeks(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
         if f"vega {n}" in pw_index:
             vega[n] = combo({pw_index[f"vega {n}"]: 1.0}, "pathwise")
         else:
-            vega[n] = combo({index[f"v+ {n}"]: 0.5 / VOL_BUMP, index[f"v- {n}"]: -0.5 / VOL_BUMP},
+            vega[n] = combo({index[f"v+ {n}"]: 0.5 / dvs[n], index[f"v- {n}"]: -0.5 / dvs[n]},
                             "bump (central, common numbers)")
     for a, b in pairs:
         ha, hb = SPOT_BUMP * market.asset(a).spot, SPOT_BUMP * market.asset(b).spot

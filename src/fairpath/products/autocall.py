@@ -43,6 +43,8 @@ from fairpath.laws import BRIDGE_UNDER_LAW
 from fairpath.market import Market
 from fairpath.products.base import PathSet, Product, asset_list, read_asset_names
 
+#: Levels above this are refused as not fractions of the initial level (a percentage typed as 70).
+MAX_LEVEL = 5.0
 MONITORINGS = ("final", "daily", "continuous")
 
 
@@ -102,6 +104,16 @@ class Autocallable(Product):
             if not (math.isfinite(v) and v >= 0):
                 raise InputError(f"must be a non-negative fraction of the initial level (0 for "
                                  f"none), got {v}", key=key)
+        for key in ("strike_level", "coupon_barrier", "protection_barrier"):
+            v = getattr(self, key)
+            if v > MAX_LEVEL:
+                raise InputError(f"{v:g} is not a fraction of the initial level (1.00 = 100%); "
+                                 f"a percentage? write {v / 100:g} for {v:g}%", key=key)
+        if MAX_LEVEL < self.autocall_level < 1000:
+            warnings.warn(f"autocall_level {self.autocall_level:g} is {self.autocall_level:g} "
+                          "times the initial level, so the note is never called early; if it "
+                          f"is a percentage, write {self.autocall_level / 100:g}",
+                          FairpathWarning, stacklevel=3)
         for key in ("coupon", "notional", "autocall_step"):
             v = getattr(self, key)
             if not math.isfinite(v):
@@ -138,6 +150,10 @@ class Autocallable(Product):
             missing = [a for a in assets if a not in names]
             raise InputError(f"a struck trade needs an initial level for every asset; missing "
                              f"{', '.join(missing)}", key="initial_levels")
+        if self.protection_barrier > 1.0 and self.protection_monitoring != "final":
+            warnings.warn(f"protection_barrier {self.protection_barrier:g} is above the initial "
+                          "level: the note is knocked in from its first close",
+                          FairpathWarning, stacklevel=3)
         if levels and self.coupon_barrier > max(levels) + 1e-12:
             warnings.warn(f"coupon_barrier {self.coupon_barrier:g} is above every early-"
                           f"redemption level (at most {max(levels):g}): coupons would be paid "
