@@ -43,7 +43,8 @@ from fairpath.laws import BRIDGE_UNDER_LAW
 from fairpath.market import Market
 from fairpath.products.base import PathSet, Product, asset_list, read_asset_names
 
-#: Levels above this are refused as not fractions of the initial level (a percentage typed as 70).
+#: Levels between this and 1000 are refused as not fractions of the initial level (a
+#: percentage typed as 70); a huge level (1e6) is the way to write "never" or "always".
 MAX_LEVEL = 5.0
 MONITORINGS = ("final", "daily", "continuous")
 
@@ -106,7 +107,7 @@ class Autocallable(Product):
                                  f"none), got {v}", key=key)
         for key in ("strike_level", "coupon_barrier", "protection_barrier"):
             v = getattr(self, key)
-            if v > MAX_LEVEL:
+            if MAX_LEVEL < v < 1000:  # 1e6 and the like: deliberately never / always
                 raise InputError(f"{v:g} is not a fraction of the initial level (1.00 = 100%); "
                                  f"a percentage? write {v / 100:g} for {v:g}%", key=key)
         if MAX_LEVEL < self.autocall_level < 1000:

@@ -200,6 +200,13 @@ class Product:
         """Closed-form price under flat Black-Scholes-Merton inputs, when one exists."""
         return None
 
+    def reference(self, market: Market) -> float | None:
+        """The closed form when it applies to this market: none when one of the product's
+        assets has a non-normal shock law (the formulas assume normal returns)."""
+        if market.non_normal(self.underlyings()):
+            return None
+        return self.closed_form(market)
+
     def label(self) -> str:
         return self.name or self.kind
 
