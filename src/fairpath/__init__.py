@@ -8,7 +8,7 @@
 
 from fairpath.errors import FairpathError, FairpathWarning, InputError, SamplingWarning
 from fairpath.estimate import CAUTION, PriceResult, price, price_many
-from fairpath.greeks import GreeksResult, greek_profile, greeks
+from fairpath.greeks import GreekProfile, GreeksResult, greek_profile, greeks
 from fairpath.laws import EmpiricalLaw, Law, NormalLaw, StudentT
 from fairpath.market import Asset, Correlation, DiscountCurve, Market, VolCurve, load_market
 from fairpath.products import (
@@ -22,17 +22,16 @@ from fairpath.products import (
     Product,
     load_product,
 )
-from fairpath.quotes import QuoteCheck, check_quote, check_quotes
+from fairpath.quotes import QuoteCheck, QuoteChecks, check_quote, check_quotes
 from fairpath.solve import SolveResult, solve
 
 __version__ = "0.1.0"
 
 __all__ = [
     "CAUTION", "REGISTRY", "Asian", "Asset", "Autocallable", "Barrier", "Basket", "Correlation",
-    "Digital", "DiscountCurve", "EmpiricalLaw", "European", "Law", "NormalLaw", "StudentT",
-    "FairpathError", "FairpathWarning", "GreeksResult", "InputError", "Market", "PriceResult",
-    "Product",
-    "SamplingWarning", "SolveResult", "VolCurve", "load_market", "load_product", "price",
-    "QuoteCheck", "check_quote", "check_quotes", "greek_profile", "greeks", "price_many",
-    "solve",
+    "Digital", "DiscountCurve", "EmpiricalLaw", "European", "FairpathError", "FairpathWarning",
+    "GreekProfile", "GreeksResult", "InputError", "Law", "Market", "NormalLaw", "PriceResult",
+    "Product", "QuoteCheck", "QuoteChecks", "SamplingWarning", "SolveResult", "StudentT",
+    "VolCurve", "check_quote", "check_quotes", "greek_profile", "greeks", "load_market",
+    "load_product", "price", "price_many", "solve",
 ]

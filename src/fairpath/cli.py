@@ -83,9 +83,27 @@ def _law(args, kind: str | None, flag: str):
 
 def _market(args):
     """The market file, with the shock law of ``--law`` when one is given."""
+    kinds = {getattr(args, "law", None), getattr(args, "compare_law", None)}
+    for flag, value, kind in (("--dof", getattr(args, "dof", None), "student-t"),
+                              ("--history", getattr(args, "history", None), "empirical")):
+        if value is not None and kind not in kinds:
+            raise InputError(f"applies to a {kind} law only: add --law {kind}"
+                             + (f" or --compare-law {kind}" if hasattr(args, "compare_law")
+                                else ""), key=flag)
     market = load_market(args.market)
     law = _law(args, getattr(args, "law", None), "--law")
     return market if law is None else market.with_law(law)
+
+
+def _law_flag(args, exc: InputError) -> str | None:
+    """The command-line flag to blame for a law refused by the engine, when the law came from
+    the command line rather than the market file."""
+    if not (exc.key or "").endswith(".law"):
+        return None
+    for kind in (getattr(args, "law", None), getattr(args, "compare_law", None)):
+        if kind is not None:
+            return "--dof" if kind == "student-t" else "--law"
+    return None
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -168,7 +186,8 @@ def main(argv: list[str] | None = None) -> int:
         if args.command == "demo":
             return _demo(args)
     except InputError as exc:
-        print(f"fairpath: error: {exc}", file=sys.stderr)
+        flag = _law_flag(args, exc)
+        print(f"fairpath: error: {flag + ': ' + exc.problem if flag else exc}", file=sys.stderr)
         return 2
     except FairpathError as exc:
         print(f"fairpath: internal error: {exc}", file=sys.stderr)
@@ -201,17 +220,21 @@ def _emit(res, as_json: bool) -> int:
 
 
 def _check(args) -> int:
-    from fairpath.quotes import check_quotes, write_report
+    from fairpath.quotes import check_quotes, check_report_path, write_report
+    from fairpath.sampling import normalize_seed
 
+    if args.report:
+        check_report_path(args.report)  # refuse an unwritable report before any pricing
     market = _market(args)
     other = _law(args, args.compare_law, "--compare-law")
     checks = check_quotes(args.quotes, market, vol_band=args.vol_band, paths=args.paths,
-                          sampler=args.sampler, seed=args.seed, compare_law=other)
+                          sampler=args.sampler, seed=args.seed, compare_law=other,
+                          progress=not args.json and sys.stderr.isatty())
     if args.report:
         write_report(args.report, checks, market,
                      {"quotes": args.quotes, "market": args.market, "paths": args.paths,
-                      "sampler": args.sampler, "seed": args.seed if args.seed is not None
-                      else "default", "vol band": args.vol_band,
+                      "sampler": args.sampler, "seed": normalize_seed(args.seed),
+                      "vol band": args.vol_band,
                       "shock law": "market file" if args.law is None else args.law,
                       "comparison law": "none" if other is None else other.describe()})
     if args.json:
@@ -297,7 +320,12 @@ def _demo(args) -> int:
     if not files:
         raise InputError("no product files (*.toml) in this folder", source=str(payoffs))
     rows = []
-    for f in files:
+    todo = files
+    if not args.json and sys.stderr.isatty():  # a progress bar on a terminal, as for price
+        from tqdm.auto import tqdm
+
+        todo = tqdm(files, desc="pricing the payoffs", unit="product", leave=False)
+    for f in todo:
         row = {"file": f.name}
         try:
             product = load_product(f)

@@ -421,6 +421,34 @@ def combine(moments: dict[Block, Moments], blocks: list[Block], controls: list[C
                     tuple(controls[i].name for i in chosen), vrf, tuple(notes))
 
 
+def check_law_tails(market: Market, names, variance: np.ndarray, paths: int) -> None:
+    """Refuse a run whose non-normal shock laws put more than ``MAX_UNSEEN`` of a forward in
+    moves it is unlikely to draw (rarer than one in ``paths x steps``): its forwards, and so
+    its prices, would come out biased (see :mod:`fairpath.laws`)."""
+    from fairpath.laws import MAX_UNSEEN, SEEN_DRAWS
+
+    steps = variance.shape[1]
+    p_seen = SEEN_DRAWS / (max(paths, 1) * max(steps, 1))
+    for i, n in enumerate(names):
+        law = market.asset(n).law
+        if law.is_normal:
+            continue
+        sd = np.sqrt(variance[i])
+        keys, counts = np.unique(np.round(sd, 12), return_counts=True)
+        unseen = sum(c * law.unseen_tail(float(k), p_seen) for k, c in zip(keys, counts,
+                                                                           strict=True))
+        if not unseen <= MAX_UNSEEN:
+            vol = float(np.sqrt(np.sum(variance[i]) / max(float(np.sum(variance[i] > 0)), 1)
+                                * 261))
+            raise InputError(
+                f"the {law.describe()} law is too heavy-tailed at {n}'s vol (about {vol:.0%}): "
+                + (f"{unseen:.2%} of the forward sits in" if unseen < 1 else
+                   "the forward is dominated by") + " one-day moves rarer than one "
+                f"in {1 / p_seen:,.0f}, which a run of {paths:,} paths x {steps} steps hardly "
+                "ever draws, so prices would come out low; use more degrees of freedom, a "
+                "lower vol or more paths", source=market.source, key=f"assets.{n}.law")
+
+
 def law_notes_for(market: Market, names) -> list[str]:
     """What a result says when some of its assets' shocks are not normal (empty otherwise)."""
     odd = market.non_normal(names)
@@ -521,6 +549,9 @@ def price_many(products: list[Product], market: Market, *, paths: int = DEFAULT_
     sim = Simulation(products, market, smp, controls, source)
     sim.progress = progress
     notes: list[str] = list(law_notes)
+    if law_notes and sim.params is not None:
+        check_law_tails(market, sim.names, sim.params.variance,
+                        paths)
     dim = len(sim.names) * sim.steps
     if smp.name == "sobol" and dim > SOBOL_MAX_DIM:
         msg = (f"the Sobol dimension {dim} ({sim.steps} dates x {len(sim.names)} assets) exceeds "
@@ -571,7 +602,10 @@ def price_many(products: list[Product], market: Market, *, paths: int = DEFAULT_
         diag = {k: v / total for k, v in diag.items()}
         these = [*notes, *p.notes(market), *est.notes]
         paying = sum(cache[b].paying[j] for b in blocks) / total
-        if smp.replicates is not None and 0 < paying < FEW_PAYING:
+        if paying == 0 and est.stderr == 0:
+            these.append(f"no path pays: the value is below what {total:,} paths can resolve, "
+                         "and its zero error bar says nothing about it")
+        elif smp.replicates is not None and 0 < paying < FEW_PAYING:
             these.append(f"only {paying:.2%} of the paths pay: a Sobol error bar resting on so "
                          "few paths per scrambling can be too narrow; confirm with "
                          "--sampler pseudo or more paths")

@@ -51,6 +51,7 @@ from fairpath.estimate import (
     DEFAULT_PATHS,
     Moments,
     Simulation,
+    check_law_tails,
     law_notes_for,
     merge_all,
 )
@@ -340,6 +341,7 @@ def greeks(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
                      "payoff uses today's spot directly, or a shock law is not normal, so the "
                      "normal score does not apply): bumps used")
     if odd_laws:
+        check_law_tails(market, names, runner.sim.params.variance, paths)
         notes.extend(law_notes_for(market, names))
         if use_pathwise:
             notes.append("pathwise vega needs normal shocks: vega is bumped")
@@ -441,9 +443,12 @@ def greeks(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
 
 
 def greek_profile(product: Product, market: Market, asset: str | None = None,
-                  spots=None, **kwargs) -> list[tuple[float, GreeksResult]]:
+                  spots=None, **kwargs) -> GreekProfile:
     """The Greeks over a range of spots of one asset (default: 70% to 130% of spot, 13 points),
     each on the same random numbers; keyword arguments go to :func:`greeks`.
+
+    Returns a :class:`GreekProfile`: a list of ``(spot, GreeksResult)`` pairs that renders as a
+    table in a notebook and draws one Greek over spot with ``.plot("delta")``.
 
     Examples
     --------
@@ -467,4 +472,48 @@ def greek_profile(product: Product, market: Market, asset: str | None = None,
             raise InputError(f"spots must be positive, got {s}", key="spots")
         m = _bump_spot(market, asset, float(s) / base)
         out.append((float(s), greeks(product, m, **kwargs)))
-    return out
+    return GreekProfile(out, asset=asset)
+
+
+class GreekProfile(list):
+    """``(spot, GreeksResult)`` pairs over spots of one asset (:func:`greek_profile`).
+
+    A plain list of tuples in every other respect; in a notebook it renders as a table of the
+    price, delta, gamma and vega of ``asset`` at each spot (value and standard error), and
+    :meth:`plot` draws one Greek with its 95% band.
+    """
+
+    def __init__(self, items=(), *, asset: str | None = None):
+        super().__init__(items)
+        self.asset = asset
+
+    def _asset(self) -> str | None:
+        if self.asset is not None or not self:
+            return self.asset
+        return next(iter(self[0][1].delta), None)
+
+    def _repr_html_(self) -> str:
+        import html
+
+        asset = self._asset()
+
+        def cell(d: dict) -> str:
+            g = d.get(asset)
+            return "<td></td>" if g is None else (
+                f"<td>{g.value:.6g} <small>({g.stderr:.2g})</small></td>")
+
+        body = "".join(f"<tr><td>{s:.6g}</td><td>{r.price:.6g} <small>({r.stderr:.2g})"
+                       f"</small></td>{cell(r.delta)}{cell(r.gamma)}{cell(r.vega)}</tr>"
+                       for s, r in self)
+        name = html.escape(asset or "")
+        return (f"<table><caption>Greeks of {name} over its spot (value, standard error in "
+                f"brackets)</caption><tr><th>spot of {name}</th><th>price</th><th>delta</th>"
+                f"<th>gamma</th><th>vega</th></tr>{body}</table>"
+                f"<p><small>{html.escape(CAUTION)}</small></p>")
+
+    def plot(self, greek: str = "delta", ax=None):
+        """One Greek of the profile's asset over spot, with its 95% band (a matplotlib
+        figure; see :func:`fairpath.plots.greek_profile`)."""
+        from fairpath import plots
+
+        return plots.greek_profile(self, greek, asset=self._asset(), ax=ax)

@@ -9,12 +9,19 @@ For each quote:
 * ``difference = quote - price`` and ``z = difference / stderr``;
 * the verdict: ``rich`` (quote above the band), ``cheap`` (below it) or ``fair``;
 * for a single-asset product, the implied volatility of the quote: the flat vol at which the
-  model reproduces the quote, solved on common random numbers with ``brentq`` (empty, with the
-  reason, when no vol in [MIN_VOL, MAX_VOL] reaches it);
+  model reproduces the quote, on common random numbers (the same seed and settings for every
+  vol). The price is evaluated on a grid of vols (:func:`vol_grid`, a dozen points, densest
+  around the asset's market vol); every grid interval where ``price - quote`` changes sign is
+  solved with ``brentq``. The price of a digital or a barrier is not monotone in vol, so two
+  vols can reproduce one quote: the one nearest the market vol is reported and the note gives
+  the other. Empty, with the reason, when no vol in [MIN_VOL, MAX_VOL] reaches the quote;
 * for an autocallable, the fair coupon at the quoted price (the solver) beside the note's coupon.
 
-A row whose product file fails to load, or whose quote is not a number, is reported with its
-error and the other rows are still priced.
+A row whose product file fails to load, or whose product, quote or tolerance cell is bad, is
+reported with its error (``QUOTES.csv line N: ...``) and the other rows are still priced.
+
+In a notebook the results render as tables (``_repr_html_``) and :meth:`QuoteChecks.plot` draws
+the quotes against their bands.
 """
 
 from __future__ import annotations
@@ -30,7 +37,8 @@ import tempfile
 from dataclasses import dataclass
 from pathlib import Path
 
-from scipy.optimize import brentq
+import numpy as np
+from scipy.optimize import brentq, minimize_scalar
 
 from fairpath.errors import FairpathError, InputError
 from fairpath.estimate import CAUTION, DEFAULT_PATHS, price
@@ -38,9 +46,15 @@ from fairpath.laws import Law
 from fairpath.market import Market, VolCurve
 from fairpath.products.base import Product
 from fairpath.products.loader import load_product
+from fairpath.sampling import normalize_seed
 
 MIN_VOL, MAX_VOL = 1e-4, 3.0
 BAND_STDERRS = 3.0
+#: The implied-vol grid: the market vol times ``sqrt(2)**k`` for ``|k| <= GRID_HALF_WIDTH``,
+#: plus MIN_VOL, 1% and MAX_VOL (a dozen points).
+GRID_HALF_WIDTH = 4
+#: Verdict colours (report chart and ``QuoteChecks.plot``).
+COLOURS = {"fair": "#2f7d32", "rich": "#b3261e", "cheap": "#1f5fa8"}
 
 
 @dataclass(frozen=True, slots=True)
@@ -77,6 +91,10 @@ class QuoteCheck:
                      other_stderr=self.other_stderr)
         return d
 
+    def _repr_html_(self) -> str:
+        """A one-row verdict table (and the caution) for a notebook."""
+        return _table_html([self]) + _caution_html()
+
 
 def _with_vols(market: Market, names, shift: float | None = None, flat: float | None = None
                ) -> Market:
@@ -90,25 +108,102 @@ def _with_vols(market: Market, names, shift: float | None = None, flat: float | 
     return market
 
 
+def market_vol(product: Product, market: Market, name: str) -> float:
+    """The asset's Black vol to the product's last observation date (its flat vol when flat)."""
+    curve = market.asset(name).vol
+    dates = [d for d in product.observation_dates() if d > market.valuation_date]
+    t = float(market.time(max(dates))) if dates else 1.0
+    return float(curve.implied(t))
+
+
+def vol_grid(centre: float) -> list[float]:
+    """The vols at which :func:`implied_vol` evaluates the price first: ``centre`` times
+    ``sqrt(2)**k`` for ``k = -GRID_HALF_WIDTH..GRID_HALF_WIDTH`` (a quarter to four times the
+    market vol), plus MIN_VOL, 1% and MAX_VOL, sorted, inside [MIN_VOL, MAX_VOL]."""
+    if not (MIN_VOL < centre < MAX_VOL):
+        centre = 0.2
+    pts = {MIN_VOL, 0.01, MAX_VOL}
+    pts.update(centre * math.sqrt(2.0) ** k
+               for k in range(-GRID_HALF_WIDTH, GRID_HALF_WIDTH + 1))
+    return sorted(v for v in pts if MIN_VOL <= v <= MAX_VOL)
+
+
 def implied_vol(product: Product, market: Market, quote: float, **settings
                 ) -> tuple[float | None, str]:
-    """Flat vol reproducing ``quote`` on common random numbers, or (None, reason)."""
+    """Flat vol reproducing ``quote`` on common random numbers, or (None, reason).
+
+    The price is evaluated on :func:`vol_grid` around the asset's market vol (the same seed
+    and settings for every vol); each grid interval where ``price - quote`` changes sign is
+    solved with ``brentq``. When the quote lies beyond every grid price but the grid's
+    highest (lowest) price is inside the grid, that extremum is refined first, since two roots
+    can hide between two grid points. Of several roots the one nearest the market vol is
+    returned and the note names the others.
+    """
     names = product.underlyings()
     if len(names) != 1:
         return None, "several assets: no single implied vol"
+    centre = market_vol(product, market, names[0])
+    seen: dict[float, float] = {}
 
-    def value(v: float) -> float:
-        return price(product, _with_vols(market, names, flat=v), **settings).price
+    def f(v: float) -> float:
+        if v not in seen:
+            seen[v] = price(product, _with_vols(market, names, flat=v), **settings).price
+        return seen[v] - quote
 
-    lo, hi = value(MIN_VOL), value(MAX_VOL)
-    if (lo - quote) * (hi - quote) > 0:
-        bound = min(lo, hi), max(lo, hi)
-        where = "below" if quote < bound[0] else "above"
-        return None, (f"no vol in [{MIN_VOL:g}, {MAX_VOL:g}] reaches it: the quote is {where} "
-                      f"the model's range [{bound[0]:.6g}, {bound[1]:.6g}]"
-                      + (" (below intrinsic)" if where == "below" and lo <= hi else ""))
-    v = brentq(lambda s: value(s) - quote, MIN_VOL, MAX_VOL, xtol=1e-7, maxiter=100)
-    return float(v), ""
+    grid, fs = [], []
+    for v in vol_grid(centre):
+        try:
+            fs.append(f(v))
+        except InputError as exc:
+            if not (exc.key or "").endswith(".law"):
+                raise
+            break  # a heavy-tailed law refuses this vol and any higher one
+        grid.append(v)
+    top = grid[-1] if grid else MIN_VOL
+    if len(grid) < 2:
+        return None, "the shock law refuses every vol of the search"
+    roots = [v for v, y in zip(grid, fs, strict=True) if y == 0]
+    brackets = [(a, b) for a, fa, b, fb in zip(grid, fs, grid[1:], fs[1:], strict=False)
+                if fa * fb < 0]
+    if not roots and not brackets:
+        brackets = _extremum_brackets(f, grid, fs)
+    if not roots and not brackets:
+        lo, hi = min(seen.values()), max(seen.values())
+        if hi == lo:
+            return None, f"the price does not depend on vol (always {lo:.6g})"
+        where = "below" if quote < lo else "above"
+        intrinsic = where == "below" and seen[MIN_VOL] == lo
+        return None, (f"no vol in [{MIN_VOL:g}, {top:g}] reaches it: the quote is {where} "
+                      f"the model's range [{lo:.6g}, {hi:.6g}]"
+                      + (" (below intrinsic)" if intrinsic else ""))
+    for a, b in brackets:
+        roots.append(float(brentq(f, a, b, xtol=1e-7, maxiter=100)))
+    roots.sort(key=lambda v: (abs(v - centre), v))
+    best, others = roots[0], sorted(roots[1:])
+    if not others:
+        return best, ""
+    listed = ", ".join(f"{v:.2%}" for v in others)
+    one = len(others) == 1
+    return best, (f"the price is not monotone in vol: {'another vol' if one else 'other vols'}, "
+                  f"{listed}, also reproduce{'s' if one else ''} the quote; the one nearest the "
+                  f"market vol {centre:.2%} is reported")
+
+
+def _extremum_brackets(f, grid: list[float], fs: list[float]) -> list[tuple[float, float]]:
+    """When every grid value of ``f`` has one sign, refine the interior extremum nearest zero
+    (a maximum when all are negative, a minimum when all are positive); if it crosses zero,
+    the two brackets on either side of it."""
+    sign = 1.0 if fs[0] > 0 else -1.0
+    i = int(np.argmin([sign * y for y in fs]))
+    if i in (0, len(grid) - 1):
+        return []
+    a, b = grid[i - 1], grid[i + 1]
+    opt = minimize_scalar(lambda v: sign * f(v), bounds=(a, b), method="bounded",
+                          options={"xatol": 1e-4 * grid[i], "maxiter": 30})
+    x = float(opt.x)
+    if sign * f(x) >= 0:
+        return []
+    return [(a, x), (x, b)]
 
 
 def check_quote(product: Product, market: Market, quote: float, *, vol_band: float = 0.01,
@@ -169,16 +264,23 @@ def check_quote(product: Product, market: Market, quote: float, *, vol_band: flo
 
 def read_quotes(path: str | Path) -> list[dict]:
     """Rows of a quotes CSV (columns ``product,quote`` and an optional ``tolerance``)."""
+    return [row for _, row in _read_rows(path)]
+
+
+def _read_rows(path: str | Path) -> list[tuple[int, dict]]:
+    """(line number, row) for every record of a quotes CSV."""
     p = Path(path)
     try:
         text = p.read_text(encoding="utf-8")
     except FileNotFoundError:
         raise InputError("file not found", source=str(path)) from None
+    except IsADirectoryError:
+        raise InputError("is a directory, not a CSV file", source=str(path)) from None
     except (OSError, UnicodeDecodeError) as exc:
         raise InputError(f"cannot read: {exc}", source=str(path)) from None
     try:
         reader = csv.DictReader(io.StringIO(text))
-        rows = list(reader)
+        rows = [(reader.line_num, row) for row in reader]
     except csv.Error as exc:
         raise InputError(f"not valid CSV: {exc}", source=str(path)) from None
     cols = reader.fieldnames or []
@@ -189,37 +291,189 @@ def read_quotes(path: str | Path) -> list[dict]:
     return rows
 
 
+def _number(row: dict, column: str, source: str, *, required: bool) -> float | None:
+    """The number in one cell, or an InputError naming the file, the line and the cell."""
+    text = (row.get(column) or "").strip()
+    if not text:
+        if required:
+            raise InputError("empty", source=source, key=column)
+        return None
+    try:
+        value = float(text)
+    except ValueError:
+        raise InputError(f"{column} is not a number: {text!r}", source=source) from None
+    if not math.isfinite(value):
+        raise InputError(f"{column} must be finite, got {text!r}", source=source)
+    return value
+
+
 def check_quotes(quotes_csv: str | Path, market: Market, *, vol_band: float = 0.01,
-                 **settings) -> list[QuoteCheck]:
-    """Check every row of a quotes CSV; product paths are relative to the CSV."""
-    rows = read_quotes(quotes_csv)
+                 progress: bool = False, **settings) -> QuoteChecks:
+    """Check every row of a quotes CSV; product paths are relative to the CSV.
+
+    Returns a :class:`QuoteChecks` (a list of :class:`QuoteCheck`, one per row, in file order)
+    that renders as a table in a notebook and has ``.plot()``. ``progress`` shows a progress
+    bar over the rows (tqdm; notebook-aware). Other keyword arguments go to
+    :func:`check_quote`.
+    """
+    rows = _read_rows(quotes_csv)
     base = Path(quotes_csv).parent
-    out = []
-    for i, row in enumerate(rows, start=2):
-        prod = (row.get("product") or "").strip()
-        try:
-            try:
-                quote = float(row.get("quote", ""))
-            except (TypeError, ValueError):
-                raise InputError(f"quote is not a number: {row.get('quote')!r}",
-                                 source=f"{quotes_csv} line {i}") from None
-            if not math.isfinite(quote):
-                raise InputError(f"quote must be finite, got {quote}",
-                                 source=f"{quotes_csv} line {i}")
-            tol_text = (row.get("tolerance") or "").strip()
-            tol = float(tol_text) if tol_text else 0.0
-            path = base / prod
-            product = load_product(path)
-            out.append(check_quote(product, market, quote, vol_band=vol_band, tolerance=tol,
-                                   label=prod, source=str(path), **settings))
-        except (InputError, FairpathError, ValueError) as exc:
-            q = row.get("quote")
-            try:
-                qv = float(q)
-            except (TypeError, ValueError):
-                qv = None
-            out.append(QuoteCheck(prod, qv, status="error", message=str(exc)))
+    out = QuoteChecks(settings={
+        "paths": settings.get("paths", DEFAULT_PATHS),
+        "sampler": settings.get("sampler", "sobol"),
+        "seed": normalize_seed(settings.get("seed")), "vol band": vol_band})
+    bar = None
+    if progress and rows:
+        from tqdm.auto import tqdm
+
+        bar = tqdm(total=len(rows), desc="checking quotes", unit="quote", leave=False)
+    try:
+        for line, row in rows:
+            out.append(_check_row(row, f"{quotes_csv} line {line}", base, market, vol_band,
+                                  settings))
+            if bar is not None:
+                bar.update(1)
+    finally:
+        if bar is not None:
+            bar.close()
     return out
+
+
+def _check_row(row: dict, where: str, base: Path, market: Market, vol_band: float,
+               settings: dict) -> QuoteCheck:
+    prod = (row.get("product") or "").strip()
+    try:
+        if not prod:
+            raise InputError("empty", source=where, key="product")
+        quote = _number(row, "quote", where, required=True)
+        tol = _number(row, "tolerance", where, required=False)
+        if tol is not None and tol < 0:
+            raise InputError(f"tolerance must not be negative, got {tol:g}", source=where)
+        path = base / prod
+        product = load_product(path)
+        return check_quote(product, market, quote, vol_band=vol_band, tolerance=tol or 0.0,
+                           label=prod, source=str(path), **settings)
+    except (InputError, FairpathError, ValueError) as exc:
+        try:
+            qv = float(row.get("quote"))
+        except (TypeError, ValueError):
+            qv = None
+        return QuoteCheck(prod, qv, status="error", message=str(exc))
+
+
+# ---------------------------------------------------------------------------------------------
+# Display: tables (report and notebook) and a chart
+# ---------------------------------------------------------------------------------------------
+def _fmt(v, spec: str = ".6g") -> str:
+    return "" if v is None else format(v, spec)
+
+
+def _table_html(checks: list[QuoteCheck], attrs: str = "") -> str:
+    """The verdicts as an HTML table (the report's and the notebook's)."""
+    alt = next((c.other_law for c in checks if c.other_law is not None), None)
+    head = ("product", "quote", "price", "stderr", "low", "high", "difference", "z",
+            "verdict", "implied vol", "coupon / fair coupon",
+            *((f"price under the {alt} law",) if alt else ()), "note")
+    body = []
+    for c in checks:
+        if c.status != "ok":
+            body.append(f"<tr><td>{html.escape(c.product)}</td><td>{_fmt(c.quote)}</td>"
+                        f"<td colspan='{len(head) - 2}' class='err' style='text-align:left'>"
+                        f"error: {html.escape(c.message)}</td></tr>")
+            continue
+        cpn = "" if c.coupon is None else f"{c.coupon:.4%} / {_fmt(c.fair_coupon, '.4%')}"
+        law_col = (f"{_fmt(c.other_price)} ({_fmt(c.other_stderr, '.3g')})",) if alt else ()
+        cells = (c.product, _fmt(c.quote), _fmt(c.price), _fmt(c.stderr, ".3g"), _fmt(c.low),
+                 _fmt(c.high), _fmt(c.difference, ".4g"), _fmt(c.z, ".2f"), c.verdict,
+                 _fmt(c.implied_vol, ".4%"), cpn, *law_col, c.implied_vol_note)
+        style = f" style='color:{COLOURS[c.verdict]}'"
+        body.append("<tr>" + "".join(
+            f"<td{style if i == 8 else ''}>{html.escape(str(v))}</td>"
+            for i, v in enumerate(cells)) + "</tr>")
+    header = "".join(f"<th>{html.escape(h)}</th>" for h in head)
+    return f"<table{attrs}><tr>{header}</tr>{''.join(body)}</table>"
+
+
+def _caution_html() -> str:
+    return f"<p><small>{html.escape(CAUTION)}</small></p>"
+
+
+class QuoteChecks(list):
+    """The checks of a quotes CSV, one :class:`QuoteCheck` per row in file order.
+
+    A plain list in every other respect (``json.dumps([c.to_dict() for c in checks])`` works
+    as before); in a notebook it renders as the verdict table with the caution under it, and
+    :meth:`plot` draws the quotes against their bands. ``settings`` holds the run's settings
+    (paths, sampler, seed, vol band) for the report.
+    """
+
+    def __init__(self, items=(), *, settings: dict | None = None):
+        super().__init__(items)
+        self.settings = dict(settings or {})
+
+    def to_dicts(self) -> list[dict]:
+        """The ``--json`` rows."""
+        return [c.to_dict() for c in self]
+
+    def _repr_html_(self) -> str:
+        return _table_html(list(self)) + _caution_html()
+
+    def plot(self, ax=None, *, units: str = "auto"):
+        """Each priced quote against its band, one row per quote: the band as a grey bar, the
+        fair value as a black tick, the quote as a dot coloured by its verdict (green fair,
+        red rich, blue cheap). The horizontal axis is the distance from the fair value, in %
+        of the fair value (``units="percent"``) or in half-widths of the band
+        (``units="band"``); ``"auto"`` takes percent unless a fair value is zero. Rows with an
+        error are left out (the title counts them). Returns a matplotlib figure."""
+        from matplotlib.lines import Line2D
+        from matplotlib.patches import Patch
+
+        if units not in ("auto", "percent", "band"):
+            raise InputError(f"must be 'auto', 'percent' or 'band', got {units!r}", key="units")
+        ok = [c for c in self if c.status == "ok"]
+        if not ok:
+            raise InputError("no priced quotes to plot")
+        if units == "auto":
+            units = "percent" if all(c.price != 0 for c in ok) else "band"
+        fig, ax = _new_axes(ax, figsize=(10, 1.8 + 0.45 * len(ok)))
+        for i, c in enumerate(ok):
+            if units == "percent":
+                scale = abs(c.price) / 100.0
+            else:
+                scale = max((c.high - c.low) / 2.0, 1e-300)
+
+            def x(v, c=c, scale=scale):
+                return (v - c.price) / scale
+            ax.barh(i, x(c.high) - x(c.low), left=x(c.low), height=0.5, color="#d9d9d9",
+                    zorder=1)
+            ax.plot([0.0, 0.0], [i - 0.3, i + 0.3], color="#444", linewidth=2, zorder=2)
+            ax.scatter([x(c.quote)], [i], s=50, color=COLOURS[c.verdict], zorder=3)
+        ax.set_yticks(range(len(ok)), [c.product if len(c.product) <= 40 else
+                                        "..." + c.product[-37:] for c in ok])
+        ax.invert_yaxis()
+        ax.set_xlabel("distance from the fair value (% of the fair value)" if units == "percent"
+                      else "distance from the fair value (half-widths of the band)")
+        skipped = len(self) - len(ok)
+        ax.set_title("Quotes against their bands"
+                     + (f" ({skipped} row(s) with errors not shown)" if skipped else ""))
+        handles = [Patch(color="#d9d9d9", label="band (vol +- band, +- 3 stderr)"),
+                   Line2D([], [], color="#444", linewidth=2, label="fair value")]
+        handles += [Line2D([], [], marker="o", linestyle="", color=col, label=f"quote: {v}")
+                    for v, col in COLOURS.items()]
+        ax.legend(handles=handles, fontsize=8, loc="upper left", bbox_to_anchor=(1.01, 1.0),
+                  borderaxespad=0.0)
+        fig.tight_layout()
+        return fig
+
+
+def _new_axes(ax=None, figsize=(7, 4)):
+    if ax is not None:
+        return ax.figure, ax
+    from matplotlib import pyplot as plt
+
+    fig, ax = plt.subplots(figsize=figsize)
+    plt.close(fig)  # shown by the notebook's display of the returned figure, not twice
+    return fig, ax
 
 
 # ---------------------------------------------------------------------------------------------
@@ -242,7 +496,7 @@ def _svg_chart(checks: list[QuoteCheck]) -> str:
 
         def x(v, lo=lo, hi=hi):
             return left + (v - lo) / (hi - lo) * (width - left - 20)
-        colour = {"fair": "#2f7d32", "rich": "#b3261e", "cheap": "#1f5fa8"}[c.verdict]
+        colour = COLOURS[c.verdict]
         parts.append(f'<text x="4" y="{y + 15}">{html.escape(c.product[:38])}</text>')
         parts.append(f'<rect x="{x(c.low):.1f}" y="{y + 4}" width="{x(c.high) - x(c.low):.1f}" '
                      f'height="16" fill="#d9d9d9"/>')
@@ -256,74 +510,119 @@ def _svg_chart(checks: list[QuoteCheck]) -> str:
     return "".join(parts)
 
 
+def _pct(v: float) -> str:
+    return f"{100.0 * v:.4g}%"
+
+
+def _vols_text(curve: VolCurve) -> str:
+    """A vol term structure with its tenors, e.g. ``0.5y 28%, 1y 30%``; one vol when flat."""
+    if curve.is_flat:
+        return f"{_pct(curve.vols[0])} (flat)"
+    return ", ".join(f"{round(t, 2):g}y {_pct(v)}"
+                     for t, v in zip(curve.times, curve.vols, strict=True))
+
+
+def _correlation_html(market: Market) -> str:
+    corr = market.correlation
+    if corr is None:
+        return "<p>No correlation matrix (the market file has none).</p>"
+    names = [html.escape(n) for n in corr.assets]
+    head = "<tr><th></th>" + "".join(f"<th>{n}</th>" for n in names) + "</tr>"
+    rows = "".join(f"<tr><th>{n}</th>" + "".join(f"<td>{v:.4g}</td>" for v in row) + "</tr>"
+                   for n, row in zip(names, corr.matrix, strict=True))
+    return f"<h3>Correlation</h3><table>{head}{rows}</table>"
+
+
+def check_report_path(path: str | Path) -> None:
+    """Refuse, before any work, a report path that cannot be written (InputError, exit 2)."""
+    target = Path(path)
+    folder = target.parent
+    if target.is_dir():
+        raise InputError("cannot write the report: this is a directory", source=str(path))
+    if not folder.exists():
+        raise InputError(f"cannot write the report: the folder {folder} does not exist",
+                         source=str(path))
+    if not folder.is_dir():
+        raise InputError(f"cannot write the report: {folder} is not a folder",
+                         source=str(path))
+    if not os.access(folder, os.W_OK | os.X_OK):
+        raise InputError(f"cannot write the report: no permission to write in {folder}",
+                         source=str(path))
+
+
+def _umask() -> int:
+    mask = os.umask(0o022)
+    os.umask(mask)
+    return mask
+
+
 def write_report(path: str | Path, checks: list[QuoteCheck], market: Market, settings: dict
                  ) -> None:
-    """One self-contained HTML file, written whole or not at all."""
+    """One self-contained HTML file, written whole or not at all (mode 0666 less the umask).
+
+    ``settings`` are the run settings to print; a :class:`QuoteChecks` adds its own (paths,
+    sampler, seed, vol band) under them. A seed of ``None`` is shown as the default seed it
+    stands for. A path that cannot be written raises :class:`InputError` naming it, and
+    nothing is left behind.
+    """
     import numpy
     import scipy
 
     from fairpath import __version__
 
-    def fmt(v, spec=".6g"):
-        return "" if v is None else format(v, spec)
-
-    alt = next((c.other_law for c in checks if c.other_law is not None), None)
-    head = ("product", "quote", "price", "stderr", "low", "high", "difference", "z",
-            "verdict", "implied vol", "coupon / fair coupon",
-            *((f"price under the {html.escape(alt)} law",) if alt else ()), "note")
-    body = []
-    for c in checks:
-        if c.status != "ok":
-            body.append(f"<tr><td>{html.escape(c.product)}</td><td>{fmt(c.quote)}</td>"
-                        f"<td colspan='{len(head) - 2}' class='err'>error: "
-                        f"{html.escape(c.message)}</td></tr>")
-            continue
-        cpn = "" if c.coupon is None else f"{c.coupon:.4%} / {fmt(c.fair_coupon, '.4%')}"
-        law_col = (f"{fmt(c.other_price)} ({fmt(c.other_stderr, '.3g')})",) if alt else ()
-        body.append("<tr>" + "".join(f"<td>{html.escape(str(v))}</td>" for v in (
-            c.product, fmt(c.quote), fmt(c.price), fmt(c.stderr, ".3g"), fmt(c.low),
-            fmt(c.high), fmt(c.difference, ".4g"), fmt(c.z, ".2f"), c.verdict,
-            fmt(c.implied_vol, ".4%"), cpn, *law_col, c.implied_vol_note)) + "</tr>")
+    check_report_path(path)
+    run_settings = dict(settings)
+    for k, v in getattr(checks, "settings", {}).items():
+        run_settings.setdefault(k, v)
+    if run_settings.get("seed") in (None, "default"):
+        run_settings["seed"] = normalize_seed(None)
     assets = "".join(f"<tr><td>{html.escape(a.name)}</td><td>{a.spot:g}</td>"
-                     f"<td>{', '.join(f'{v:g}' for v in a.vol.vols)}</td>"
+                     f"<td>{html.escape(_vols_text(a.vol))}</td>"
                      f"<td>{a.dividend_yield:g}</td><td>{html.escape(a.law.describe())}</td>"
                      "</tr>" for a in market.assets)
-    curve = ", ".join(f"{t:.3g}y: {r:.4%}" for t, r in zip(market.discount.times,
-                                                          market.discount.zero_rates,
-                                                          strict=True))
+    disc = market.discount
+    curve = (f"{disc.zero_rates[0]:.4%} (flat)" if disc.is_flat else
+             ", ".join(f"{round(t, 2):g}y {r:.4%}"
+                       for t, r in zip(disc.times, disc.zero_rates, strict=True)))
     run = "".join(f"<tr><td>{html.escape(k)}</td><td>{html.escape(str(v))}</td></tr>"
-                  for k, v in {**settings, "fairpath": __version__, "numpy": numpy.__version__,
-                               "scipy": scipy.__version__,
+                  for k, v in {**run_settings, "fairpath": __version__,
+                               "numpy": numpy.__version__, "scipy": scipy.__version__,
                                "python": platform.python_version()}.items())
     doc = f"""<!DOCTYPE html>
 <html lang="en"><head><meta charset="utf-8"><title>fairpath quote check</title>
 <style>body{{font-family:sans-serif;margin:2em;color:#222}}table{{border-collapse:collapse;
 margin:1em 0}}td,th{{border:1px solid #bbb;padding:3px 8px;text-align:right}}
 td:first-child,th:first-child{{text-align:left}}
-td:last-child{{text-align:left;max-width:24em;font-size:90%}}.err{{color:#b3261e;text-align:left}}
+table.verdicts td:last-child{{text-align:left;max-width:24em;font-size:90%}}
+.err{{color:#b3261e;text-align:left}}
 .caution{{background:#fff4e5;border:1px solid #e0a040;padding:0.8em}}</style></head><body>
 <h1>Quote check</h1>
 <p class="caution">{html.escape(CAUTION)}</p>
 <h2>Verdicts</h2>
-<table><tr>{''.join(f'<th>{h}</th>' for h in head)}</tr>{''.join(body)}</table>
+{_table_html(checks, " class='verdicts'")}
 <h2>Quotes against their bands</h2>
 {_svg_chart(checks)}
 <h2>Market inputs</h2>
 <p>valuation date {market.valuation_date}, currency {html.escape(market.currency)},
 day count {market.day_count}; discount zero rates {html.escape(curve)}</p>
-<table><tr><th>asset</th><th>spot</th><th>vol(s)</th><th>dividend yield</th>
-<th>shock law</th></tr>{assets}</table>
+<table><tr><th>asset</th><th>spot</th><th>vol (tenor in years, Black vol)</th>
+<th>dividend yield</th><th>shock law</th></tr>{assets}</table>
+{_correlation_html(market)}
 <h2>Run settings</h2><table>{run}</table>
 </body></html>
 """
     target = Path(path)
-    fd, tmp = tempfile.mkstemp(dir=target.parent or Path("."), prefix=".report-", suffix=".html")
+    tmp = None
     try:
+        fd, tmp = tempfile.mkstemp(dir=target.parent, prefix=".report-", suffix=".html")
         with os.fdopen(fd, "w", encoding="utf-8") as fh:
             fh.write(doc)
+        os.chmod(tmp, 0o666 & ~_umask())
         os.replace(tmp, target)
-    except BaseException:
-        if os.path.exists(tmp):
+        tmp = None
+    except OSError as exc:
+        raise InputError(f"cannot write the report: {exc.strerror or exc}",
+                         source=str(path)) from None
+    finally:
+        if tmp is not None and os.path.exists(tmp):
             os.unlink(tmp)
-        raise
-

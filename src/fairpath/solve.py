@@ -14,6 +14,7 @@ is a deterministic, smooth-as-the-payoff function of the key and root finding is
 from __future__ import annotations
 
 import dataclasses
+import html
 import json
 import math
 from dataclasses import dataclass
@@ -21,7 +22,7 @@ from dataclasses import dataclass
 from scipy.optimize import brentq
 
 from fairpath.errors import InputError
-from fairpath.estimate import DEFAULT_PATHS, PriceResult, price, price_many
+from fairpath.estimate import CAUTION, DEFAULT_PATHS, PriceResult, price, price_many
 from fairpath.market import Market
 from fairpath.products.base import Product
 
@@ -52,6 +53,26 @@ class SolveResult:
 
     def to_json(self) -> str:
         return json.dumps(self.to_dict())
+
+    def _rows(self) -> list[tuple[str, str]]:
+        r = self.result
+        return [(self.key, f"{self.value:.8g}"),
+                ("price there", f"{self.price:.6f} {r.currency}"),
+                ("standard error", f"{self.stderr:.6f}"),
+                ("target", f"{self.target:g}"),
+                ("method", self.method),
+                ("simulations", str(self.evaluations)),
+                ("paths", f"{r.paths:,}"),
+                ("sampler", r.sampler),
+                ("seed", str(r.seed))]
+
+    def _repr_html_(self) -> str:
+        body = "".join(f"<tr><th style='text-align:left'>{html.escape(k)}</th>"
+                       f"<td style='text-align:left'>{html.escape(v)}</td></tr>"
+                       for k, v in self._rows())
+        title = (f"<caption>{html.escape(self.result.product)}: solved for "
+                 f"{html.escape(self.key)}</caption>" if self.result.product else "")
+        return f"<table>{title}{body}</table><p><small>{html.escape(CAUTION)}</small></p>"
 
     def __str__(self) -> str:
         return (f"{self.key} = {self.value:.8g} makes the price {self.price:.6f} "
