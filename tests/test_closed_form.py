@@ -268,16 +268,18 @@ def test_asset_minus_cash_is_call(spot, m, T, r, q, sigma):
 
 
 def test_hull_bsm_example():
-    # From memory: Hull, "Options, Futures, and Other Derivatives" (worked example in the
-    # Black-Scholes-Merton chapter, we believe as in the 8th ed.): S0=42, K=40, r=10%,
+    # Hull, "Options, Futures, and Other Derivatives", 8th ed. (Pearson, 2012), chapter 14
+    # (The Black-Scholes-Merton model), worked example; edition and chapter from memory, not
+    # re-read here: S0=42, K=40, r=10%,
     # sigma=20%, T=0.5 -> call 4.76, put 0.81 (2 decimals).
     assert bsm_price(42.0, 40.0, 0.5, 0.10, 0.0, 0.20, "call") == pytest.approx(4.76, abs=0.005)
     assert bsm_price(42.0, 40.0, 0.5, 0.10, 0.0, 0.20, "put") == pytest.approx(0.81, abs=0.005)
 
 
 def test_hull_greek_letters_example():
-    # From memory: Hull, "Options, Futures, and Other Derivatives" (running example of the
-    # Greek-letters chapter, we believe as in the 8th ed.): S0=49, K=50, r=5%, sigma=20%,
+    # Hull, "Options, Futures, and Other Derivatives", 8th ed. (Pearson, 2012), chapter 18
+    # (The Greek letters), the running example; the values are those given in our issue, and
+    # edition and chapter are from memory, not re-read here: S0=49, K=50, r=5%, sigma=20%,
     # T=20 weeks=0.3846 years, q=0 -> price 2.40, delta 0.522, gamma 0.066, vega 12.1
     # (per 1.00 of vol), theta -4.31 per year, rho 8.91.
     g = bsm_greeks(49.0, 50.0, 0.3846, 0.05, 0.0, 0.20, "call")

@@ -437,6 +437,17 @@ def greeks(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
         dt = year_fraction(market.valuation_date, later.valuation_date, market.day_count)
         theta = combo({index["t+1d"]: 0.5 / dt, index["t-1d"]: -0.5 / dt},
                       "bump (valuation date +-1 day, common numbers)")
+    if product.payoff_jumps:
+        def flag(g: Greek | None) -> Greek | None:
+            """A bump of a jumping payoff whose error bar is exactly zero saw no path cross a
+            trigger in any scrambling or batch: the zero says nothing."""
+            if g is None or g.stderr > 0 or not g.method.startswith("bump"):
+                return g
+            return dataclasses.replace(g, method=g.method + "; error bar unreliable: no path "
+                                       "crossed a trigger between the bumped runs")
+        delta, gamma, vega, cross = ({k: flag(v) for k, v in d.items()}
+                                     for d in (delta, gamma, vega, cross))
+        rho, theta = flag(rho), flag(theta)
     return GreeksResult(base.value, base.stderr, market.currency, delta, gamma, vega, cross,
                         rho, theta, paths, smp.name, smp.seed, time.perf_counter() - t0, bumps,
                         tuple(notes))

@@ -593,7 +593,8 @@ def write_report(path: str | Path, checks: list[QuoteCheck], market: Market, set
 <style>body{{font-family:sans-serif;margin:2em;color:#222}}table{{border-collapse:collapse;
 margin:1em 0}}td,th{{border:1px solid #bbb;padding:3px 8px;text-align:right}}
 td:first-child,th:first-child{{text-align:left}}
-table.verdicts td:last-child{{text-align:left;max-width:24em;font-size:90%}}
+table.verdicts td:last-child,table.verdicts th:last-child{{text-align:left;min-width:16em;
+max-width:28em;font-size:90%}}
 .err{{color:#b3261e;text-align:left}}
 .caution{{background:#fff4e5;border:1px solid #e0a040;padding:0.8em}}</style></head><body>
 <h1>Quote check</h1>
