@@ -25,8 +25,10 @@ from __future__ import annotations
 import html
 import json
 import math
+import os
 import time
 import warnings
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 from datetime import date
 
@@ -148,6 +150,24 @@ class PriceResult:
         return f"<table>{title}{body}</table><p><small>{html.escape(CAUTION)}</small></p>"
 
 
+def engine_threads(threads: int | None = None) -> int:
+    """Threads for a simulation: the argument, else the ``FAIRPATH_THREADS`` environment
+    variable, else every core. Results never depend on it."""
+    if threads is None:
+        env = os.environ.get("FAIRPATH_THREADS", "").strip()
+        if env:
+            try:
+                threads = int(env)
+            except ValueError:
+                raise InputError(f"must be a positive integer, got {env!r}",
+                                 key="FAIRPATH_THREADS") from None
+        else:
+            threads = os.cpu_count() or 1
+    if isinstance(threads, bool) or not isinstance(threads, int) or threads < 1:
+        raise InputError(f"must be a positive integer, got {threads!r}", key="threads")
+    return threads
+
+
 # ---------------------------------------------------------------------------------------------
 # Per-block statistics
 # ---------------------------------------------------------------------------------------------
@@ -245,17 +265,10 @@ class Simulation:
         return len(self.grid_dates)
 
     def pathsets(self, log_levels: np.ndarray) -> list[PathSet]:
-        n = log_levels.shape[0]
-        grid_levels = np.exp(log_levels, out=log_levels)
         var = self.params.variance if self.params is not None else np.zeros((len(self.names), 0))
-        out = []
-        for dates, index in zip(self.dates, self.obs_index, strict=True):
-            levels = np.empty((n, len(self.names), len(dates)))
-            for k, g in enumerate(index):
-                levels[:, :, k] = self.spots if g < 0 else grid_levels[:, :, g]
-            out.append(PathSet(self.market, self.names, dates, levels, self.spots,
-                               self.grid_dates, self.grid_times, grid_levels, var))
-        return out
+        return [PathSet.from_log_levels(self.market, self.names, dates, index, self.spots,
+                                        self.grid_dates, self.grid_times, log_levels, var)
+                for dates, index in zip(self.dates, self.obs_index, strict=True)]
 
     @staticmethod
     def sample_values(product: Product, controls: list[ControlVariate], ps: PathSet,
@@ -273,55 +286,93 @@ class Simulation:
         return v
 
     progress: bool = False
+    #: threads for the blocks (None: ``FAIRPATH_THREADS`` or every core)
+    threads: int | None = None
 
     def run_blocks(self, blocks: list[Block], chunk_paths: int | None = None
                    ) -> dict[Block, BlockResult]:
-        """Simulate ``blocks`` in chunks; return each block's moments for every product."""
+        """Simulate ``blocks``; return each block's moments for every product.
+
+        Blocks go to a pool of threads (the compiled kernels and numpy release the GIL): one
+        block at a time for pseudo-random numbers, one scrambling's blocks in order for Sobol
+        (its generator runs forward). A block is simulated in pieces of at most
+        ``chunk_paths`` paths (memory), and its moments are taken once all its pieces are in,
+        so neither the piece size nor the number of threads changes a number.
+        """
+        n_a = len(self.names)
+        per_path = max(1, n_a * max(self.steps, 1) * 8 * 3)
+        if chunk_paths is None:
+            chunk_paths = max(64, CHUNK_BYTES // per_path)
+        piece = max(2, int(chunk_paths))
+        units: list[list[Block]] = []
+        for b in blocks:
+            if units and self.sampler.replicates is not None and units[-1][-1].stream == b.stream:
+                units[-1].append(b)
+            else:
+                units.append([b])
         bar = None
         if self.progress and len(blocks) > 1:
             from tqdm.auto import tqdm
             bar = tqdm(total=sum(b.size for b in blocks), unit="path", leave=False,
                        desc=self.products[0].label()[:30])
-        n_a = len(self.names)
-        per_path = max(1, n_a * max(self.steps, 1) * 8 * 3)
-        if chunk_paths is None:
-            chunk_paths = max(1, CHUNK_BYTES // per_path)
+
+        def run_unit(unit: list[Block]) -> list[tuple[Block, BlockResult]]:
+            return [(b, self._run_block(b, piece)) for b in unit]
+
         out: dict[Block, BlockResult] = {}
-        i = 0
-        while i < len(blocks):
-            chunk = [blocks[i]]
-            total = blocks[i].size
-            i += 1
-            while i < len(blocks) and total + blocks[i].size <= chunk_paths:
-                chunk.append(blocks[i])
-                total += blocks[i].size
-                i += 1
-            z = self.sampler.normals(chunk, n_a, self.grid_times)
-            x = simulate_log_levels(self.params, self.spots, z)
-            values, diags = [], []
-            for prod, ctl, ps in zip(self.products, self.controls, self.pathsets(x),
-                                     strict=True):
-                pay, diag = prod.evaluate(ps)
-                values.append(self.sample_values(prod, ctl, ps, pay))
-                diags.append(diag)
-            off = 0
-            for b in chunk:
-                moments, dsum, paying = [], [], []
-                for v, d in zip(values, diags, strict=True):
-                    vb = v[off:off + b.size]
-                    paying.append(int(np.count_nonzero(vb[:, 0])))
-                    if self.sampler.antithetic:
-                        h = b.size // 2
-                        vb = 0.5 * (vb[:h] + vb[h:])
-                    moments.append(Moments.of(vb))
-                    dsum.append({k: float(np.sum(a[off:off + b.size])) for k, a in d.items()})
-                off += b.size
-                out[b] = BlockResult(tuple(moments), tuple(dsum), tuple(paying))
+        workers = min(engine_threads(self.threads), len(units))
+        try:
+            if workers > 1:
+                with ThreadPoolExecutor(max_workers=workers) as pool:
+                    for done in pool.map(run_unit, units):
+                        out.update(done)
+                        if bar is not None:
+                            bar.update(sum(b.size for b, _ in done))
+            else:
+                for unit in units:
+                    done = run_unit(unit)
+                    out.update(done)
+                    if bar is not None:
+                        bar.update(sum(b.size for b, _ in done))
+        finally:
             if bar is not None:
-                bar.update(total)
-        if bar is not None:
-            bar.close()
+                bar.close()
         return out
+
+    def _run_block(self, b: Block, piece: int) -> BlockResult:
+        """One block, simulated in pieces; moments and sums over the whole block at the end."""
+        n_p = len(self.products)
+        values: list[list[np.ndarray]] = [[] for _ in range(n_p)]
+        mirrors: list[list[np.ndarray]] = [[] for _ in range(n_p)]
+        diags: list[list[dict]] = [[] for _ in range(n_p)]
+        diag_mirrors: list[list[dict]] = [[] for _ in range(n_p)]
+        anti = self.sampler.antithetic
+        for z, k in self.sampler.pieces(b, len(self.names), self.grid_times, piece):
+            x = simulate_log_levels(self.params, self.spots, z)
+            for j, (prod, ctl, ps) in enumerate(zip(self.products, self.controls,
+                                                    self.pathsets(x), strict=True)):
+                pay, diag = prod.evaluate(ps)
+                v = self.sample_values(prod, ctl, ps, pay)
+                if anti:  # draws first, then their mirrors, as in the whole block
+                    values[j].append(v[:k])
+                    mirrors[j].append(v[k:])
+                    diags[j].append({n: a[:k] for n, a in diag.items()})
+                    diag_mirrors[j].append({n: a[k:] for n, a in diag.items()})
+                else:
+                    values[j].append(v)
+                    diags[j].append(diag)
+        moments, dsum, paying = [], [], []
+        for j in range(n_p):
+            v = np.concatenate(values[j] + mirrors[j])
+            paying.append(int(np.count_nonzero(v[:, 0])))
+            if anti:
+                h = b.size // 2
+                v = 0.5 * (v[:h] + v[h:])
+            moments.append(Moments.of(v))
+            parts = diags[j] + diag_mirrors[j]
+            dsum.append({n: float(np.sum(np.concatenate([p[n] for p in parts])))
+                         for n in (parts[0] if parts else {})})
+        return BlockResult(tuple(moments), tuple(dsum), tuple(paying))
 
     def payoff_samples(self, blocks: list[Block]) -> np.ndarray:
         """The first product's discounted payoff on every path of ``blocks``."""

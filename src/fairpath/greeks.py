@@ -202,13 +202,8 @@ class _Scenarios:
         for j, (m, spots, times, params) in enumerate(self.setups):
             x = simulate_log_levels(params, spots, z.copy())
             first = x[:, :, 0].copy() if j == 0 and want_lr else None
-            grid = np.exp(x, out=x)
-            dates = sim.dates[0]
-            levels = np.empty((z.shape[0], len(sim.names), len(dates)))
-            for k, g in enumerate(sim.obs_index[0]):
-                levels[:, :, k] = spots if g < 0 else grid[:, :, g]
-            ps = PathSet(m, sim.names, dates, levels, spots, sim.grid_dates, times, grid,
-                         params.variance)
+            ps = PathSet.from_log_levels(m, sim.names, sim.dates[0], sim.obs_index[0], spots,
+                                         sim.grid_dates, times, x, params.variance)
             cols.append(np.asarray(self.product.payoff(ps), dtype=float))
             if j == 0 and want_pathwise:
                 pathwise = self.product.pathwise(ps)

@@ -22,6 +22,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from fairpath.kernels import log_paths
 from fairpath.laws import Law
 from fairpath.market import Market, integrate_vol_product
 
@@ -129,28 +130,14 @@ def psd_cholesky(c: np.ndarray, tol: float = 1e-14) -> np.ndarray:
 def simulate_log_levels(params: StepParameters, spots: np.ndarray, z: np.ndarray) -> np.ndarray:
     """Log levels on the grid from step normals ``z`` (paths, assets, steps), in place in ``z``.
 
-    The correlated increment of asset ``a`` is ``drift[a] + sum_b L[a, b] z[b]``, written as an
-    explicit loop over the (few) assets so every path's arithmetic is the same whatever the number
-    of paths in the chunk (bit-identical results for any chunk size).
+    The correlated increment of asset ``a`` is ``drift[a] + sum_b L[a, b] z[b]``, accumulated
+    path by path in a compiled loop (:func:`fairpath.kernels.log_paths`), so every path's
+    arithmetic is the same whatever the number of paths in the chunk (bit-identical results for
+    any chunk size or number of threads).
     """
-    n_a = z.shape[1]
     if params.laws is not None:
         return _simulate_with_laws(params, spots, z)
-    if n_a == 1:
-        x = z
-        x *= params.factor[:, 0, 0]
-        x += params.drift[0]
-    else:
-        x = np.empty_like(z)
-        for a in range(n_a):
-            acc = z[:, 0, :] * params.factor[:, a, 0]
-            for b in range(1, a + 1):
-                acc += z[:, b, :] * params.factor[:, a, b]
-            acc += params.drift[a]
-            x[:, a, :] = acc
-    np.cumsum(x, axis=2, out=x)
-    x += np.log(spots)[None, :, None]
-    return x
+    return log_paths(z, params.drift, params.factor, np.log(spots))
 
 
 def _simulate_with_laws(params: StepParameters, spots: np.ndarray, z: np.ndarray) -> np.ndarray:

@@ -9,8 +9,9 @@ Two samplers hand out standard normal increments, shape ``(n, assets, steps)``, 
   the next ones the mid-points, and so on.
 * :class:`PseudoSampler`: PCG64 streams, one per block, spawned from one ``SeedSequence``.
 
-Both turn uniforms into normals by the inverse normal CDF (``scipy.special.ndtri``) after clipping
-them to ``[UNIFORM_CLIP, 1 - UNIFORM_CLIP]``.
+Both turn uniforms into normals by the inverse normal CDF (Wichura's AS 241, compiled; it agrees
+with ``scipy.special.ndtri`` to a few units in the last place) after clipping them to
+``[UNIFORM_CLIP, 1 - UNIFORM_CLIP]``.
 
 A *block* is the unit of randomness and of accumulation: its numbers depend only on the seed and
 its index, never on how many blocks are computed together, so results do not depend on the chunk
@@ -23,10 +24,10 @@ import warnings
 from dataclasses import dataclass
 
 import numpy as np
-from scipy.special import ndtri
 from scipy.stats import qmc
 
 from fairpath.errors import InputError, SamplingWarning
+from fairpath.kernels import uniforms_to_normals
 
 #: Uniforms are clipped to [UNIFORM_CLIP, 1 - UNIFORM_CLIP] before the inverse CDF, so no
 #: normal is infinite (ndtri(1e-16) is about -8.2).
@@ -50,10 +51,11 @@ def normalize_seed(seed: int | None) -> int:
     return int(seed)
 
 
-def to_normal(u: np.ndarray, out: np.ndarray | None = None) -> np.ndarray:
-    """Inverse normal CDF of clipped uniforms (in place when ``out`` is ``u``)."""
-    np.clip(u, UNIFORM_CLIP, 1.0 - UNIFORM_CLIP, out=u)
-    return ndtri(u, out=u if out is None else out)
+def to_normal(u: np.ndarray) -> np.ndarray:
+    """Inverse normal CDF of clipped uniforms, in place (:func:`fairpath.kernels.
+    uniforms_to_normals`: Wichura's AS 241, within a few ulps of ``scipy.special.ndtri``)."""
+    u = np.ascontiguousarray(u, dtype=np.float64)
+    return uniforms_to_normals(u, UNIFORM_CLIP)
 
 
 @dataclass(frozen=True, slots=True)
@@ -176,6 +178,29 @@ class Sampler:
     def _block_normals(self, block: Block, n_assets: int, times: np.ndarray) -> np.ndarray:
         raise NotImplementedError  # pragma: no cover
 
+    def pieces(self, block: Block, n_assets: int, times: np.ndarray, piece: int):
+        """The block's normals in consecutive pieces of at most ``piece`` paths, for memory.
+
+        The numbers are those of :meth:`normals` for the whole block; with antithetic pairing
+        each piece holds some draws followed by their mirrors (pairs are never split).
+        Yields ``(normals, draws)``, ``draws`` the number of draws in the piece.
+        """
+        draws_total = block.size // 2 if self.antithetic else block.size
+        per = max(1, piece // 2 if self.antithetic else piece)
+        state = self._start(block, n_assets, times)
+        done = 0
+        while done < draws_total:
+            k = min(per, draws_total - done)
+            z = self._draw(state, k, n_assets, times)
+            done += k
+            yield (self._mirror(z, 2 * k) if self.antithetic else z), k
+
+    def _start(self, block: Block, n_assets: int, times: np.ndarray):
+        raise NotImplementedError  # pragma: no cover
+
+    def _draw(self, state, k: int, n_assets: int, times: np.ndarray) -> np.ndarray:
+        raise NotImplementedError  # pragma: no cover
+
     def describe(self) -> dict:
         return {"sampler": self.name, "seed": self.seed, "antithetic": self.antithetic,
                 "replicates": self.replicates}
@@ -206,12 +231,17 @@ class PseudoSampler(Sampler):
         return blocks
 
     def _block_normals(self, block, n_assets, times):
-        rng = np.random.Generator(np.random.PCG64(self._seq(block.stream)))
-        steps = len(times)
+        rng = self._start(block, n_assets, times)
         draws = block.size // 2 if self.antithetic else block.size
-        u = rng.random((draws, n_assets, steps))
-        z = to_normal(u)
+        z = self._draw(rng, draws, n_assets, times)
         return self._mirror(z, block.size) if self.antithetic else z
+
+    def _start(self, block, n_assets, times):
+        return np.random.Generator(np.random.PCG64(self._seq(block.stream)))
+
+    def _draw(self, rng, k, n_assets, times):
+        # the stream is drawn in order, so pieces of a block give the numbers of one call
+        return to_normal(rng.random((k, n_assets, len(times))))
 
 
 class SobolSampler(Sampler):
@@ -279,26 +309,36 @@ class SobolSampler(Sampler):
         return br
 
     def _block_normals(self, block, n_assets, times):
+        state = self._start(block, n_assets, times)
+        draws = block.size // 2 if self.antithetic else block.size
+        z = self._draw(state, draws, n_assets, times)
+        return self._mirror(z, block.size) if self.antithetic else z
+
+    def _start(self, block, n_assets, times):
         steps = len(times)
         dim = n_assets * steps
         if dim > SOBOL_MAX_DIM:
             raise InputError(f"the Sobol dimension {dim} (= {steps} dates x {n_assets} assets) "
                              f"exceeds the generator's limit of {SOBOL_MAX_DIM}; use the "
                              "pseudo-random sampler", key="sampler")
-        draws = block.size // 2 if self.antithetic else block.size
         first = block.start // 2 if self.antithetic else block.start
-        eng = self._engine(block.stream, dim, first)
+        return [block.stream, dim, first]
+
+    def _draw(self, state, k, n_assets, times):
+        stream, dim, first = state
+        steps = len(times)
+        eng = self._engine(stream, dim, first)
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", UserWarning)  # we issue our own balance warning
-            u = eng.random(draws)
-        self._engines[(block.stream, dim)] = (eng, first + draws)
+            u = eng.random(k)
+        self._engines[(stream, dim)] = (eng, first + k)
+        state[2] = first + k
         # coordinate c = j * n_assets + a: bridge step j of asset a (every asset's coarse path
         # comes before any asset's finer points)
-        zt = to_normal(np.ascontiguousarray(u.T)).reshape(steps, n_assets * draws)
+        zt = to_normal(np.ascontiguousarray(u.T)).reshape(steps, n_assets * k)
         if steps > 1:
             zt = self._bridge(times).increments_rows(zt)
-        z = np.ascontiguousarray(zt.reshape(steps, n_assets, draws).transpose(2, 1, 0))
-        return self._mirror(z, block.size) if self.antithetic else z
+        return np.ascontiguousarray(zt.reshape(steps, n_assets, k).transpose(2, 1, 0))
 
 
 def make_sampler(name: str, *, seed: int | None = None, antithetic: bool = False,

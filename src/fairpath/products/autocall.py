@@ -332,13 +332,18 @@ class Autocallable(Product):
         pb = self.protection_barrier
         if self.protection_monitoring == "final":
             return (worst_final <= pb).astype(float)
-        cols = ps.grid_columns(ps.market.valuation_date, self.maturity)
-        grid_perf = ps.grid_levels[:, :, cols] / init[None, :, None]
-        grid_hit = (grid_perf.min(axis=1) <= pb).any(axis=1)
-        if self.protection_monitoring == "daily" or pb <= 0:
+        lo, hi = ps.grid_range(ps.market.valuation_date, self.maturity)
+        if pb <= 0:
+            return np.zeros(n)
+        # in logs: the lowest close of each asset, then the worst performance among them
+        log_init = np.log(init)
+        lowest = ps.grid_log_levels[:, :, lo:hi].min(axis=2) - log_init[None, :]
+        grid_hit = lowest.min(axis=1) <= math.log(pb)
+        if self.protection_monitoring == "daily":
             return grid_hit.astype(float)
         # continuous: Brownian-bridge crossing probability per asset and step (see module notes)
-        x = np.log(grid_perf)
+        cols = np.arange(lo, hi)
+        x = ps.grid_log_levels[:, :, lo:hi] - log_init[None, :, None]
         x0 = np.log(ps.spots / init)[None, :, None]
         prev = np.concatenate([np.broadcast_to(x0, (n, len(init), 1)), x[:, :, :-1]], axis=2)
         h = math.log(pb)

@@ -7,6 +7,7 @@ needs their levels; the engine simulates those levels and calls :meth:`Product.p
 
 from __future__ import annotations
 
+import bisect
 from collections.abc import Callable
 from dataclasses import dataclass, field
 from datetime import date
@@ -42,8 +43,9 @@ class PathSet:
         simulated: the observation dates, plus the weekdays of any daily monitoring).
     grid_times : ndarray
         Year fractions of ``grid_dates`` (all > 0).
-    grid_levels : ndarray, shape (paths, assets, grid dates)
-        Levels on the whole grid (for monitoring between observation dates).
+    grid_log_levels : ndarray, shape (paths, assets, grid dates)
+        Natural logs of the levels on the whole grid (for monitoring between observation
+        dates); ``grid_levels`` gives the levels themselves (computed on each call).
     variance : ndarray, shape (assets, grid dates)
         Integrated variance of each asset's log-level over each grid step (the first step starts
         on the valuation date).
@@ -56,12 +58,32 @@ class PathSet:
     spots: np.ndarray
     grid_dates: tuple[date, ...]
     grid_times: np.ndarray
-    grid_levels: np.ndarray
+    grid_log_levels: np.ndarray
     variance: np.ndarray
 
     @property
     def n(self) -> int:
         return self.levels.shape[0]
+
+    @classmethod
+    def from_log_levels(cls, market: Market, names, dates, obs_index, spots, grid_dates,
+                        grid_times, log_levels: np.ndarray, variance: np.ndarray) -> PathSet:
+        """A path set from simulated log-levels on the grid; ``obs_index`` gives each
+        observation date's grid column (-1: the valuation date, at the spots)."""
+        n = log_levels.shape[0]
+        levels = np.empty((n, len(names), len(dates)))
+        for k, g in enumerate(obs_index):
+            if g < 0:
+                levels[:, :, k] = spots
+            else:
+                np.exp(log_levels[:, :, g], out=levels[:, :, k])
+        return cls(market, tuple(names), tuple(dates), levels, spots, tuple(grid_dates),
+                   grid_times, log_levels, variance)
+
+    @property
+    def grid_levels(self) -> np.ndarray:
+        """Levels on the whole grid, (paths, assets, grid dates) (a new array each call)."""
+        return np.exp(self.grid_log_levels)
 
     def df(self, d: date) -> float:
         """Discount factor from the valuation date to ``d``."""
@@ -72,9 +94,14 @@ class PathSet:
         return self.levels[:, self.names.index(name), self.dates.index(d)]
 
     def grid_columns(self, start: date, end: date) -> np.ndarray:
-        """Indices of the grid dates ``d`` with ``start < d <= end``."""
-        return np.array([i for i, d in enumerate(self.grid_dates) if start < d <= end],
-                        dtype=int)
+        """Indices of the grid dates ``d`` with ``start < d <= end`` (a contiguous range: the
+        grid is sorted)."""
+        return np.arange(*self.grid_range(start, end))
+
+    def grid_range(self, start: date, end: date) -> tuple[int, int]:
+        """``(lo, hi)`` with ``grid_dates[lo:hi]`` the grid dates in ``(start, end]``."""
+        return (bisect.bisect_right(self.grid_dates, start),
+                bisect.bisect_right(self.grid_dates, end))
 
 
 @dataclass(frozen=True, slots=True)

@@ -1,0 +1,115 @@
+"""The engine's two compiled loops (numba): uniforms to normals, and normals to log-paths.
+
+Both are plain loops over paths, compiled once (``cache=True`` keeps the machine code on disk
+between runs) and run without the GIL, so the engine's threads use every core. Each path's
+arithmetic is the same whatever the number of paths in the call, so results do not depend on
+the chunk size or the number of threads.
+
+* :func:`uniforms_to_normals`: clip to ``[clip, 1 - clip]`` and apply the inverse normal CDF by
+  Wichura's algorithm AS 241 (``PPND16``: rational approximations in three regions, relative
+  accuracy about 1e-16; M. J. Wichura, "Algorithm AS 241: The Percentage Points of the Normal
+  Distribution", Applied Statistics 37(3), 1988, 477-484). Agrees with
+  ``scipy.special.ndtri`` to a few units in the last place (tested), at about half its cost.
+* :func:`log_paths`: the exact GBM steps on a grid, correlated by each step's lower-triangular
+  factor, accumulated into log-levels, in place.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from numba import njit
+
+
+@njit(cache=True, nogil=True, inline="always")
+def _ppnd16(p: float) -> float:
+    """Inverse of the standard normal CDF at ``p`` in (0, 1), Wichura's AS 241."""
+    q = p - 0.5
+    if abs(q) <= 0.425:
+        r = 0.180625 - q * q
+        num = (((((((2509.0809287301226727 * r + 33430.575583588128105) * r
+                    + 67265.770927008700853) * r + 45921.953931549871457) * r
+                  + 13731.693765509461125) * r + 1971.5909503065514427) * r
+                + 133.14166789178437745) * r + 3.387132872796366608)
+        den = (((((((5226.495278852545925 * r + 28729.085735721942674) * r
+                    + 39307.89580009271061) * r + 21213.794301586595867) * r
+                  + 5394.1960214247511077) * r + 687.1870074920579083) * r
+                + 42.313330701600911252) * r + 1.0)
+        return q * num / den
+    r = p if q < 0.0 else 1.0 - p
+    r = np.sqrt(-np.log(r))
+    if r <= 5.0:
+        r -= 1.6
+        num = (((((((7.7454501427834140764e-4 * r + 0.0227238449892691845833) * r
+                    + 0.24178072517745061177) * r + 1.27045825245236838258) * r
+                  + 3.64784832476320460504) * r + 5.7694972214606914055) * r
+                + 4.6303378461565452959) * r + 1.42343711074968357734)
+        den = (((((((1.05075007164441684324e-9 * r + 5.475938084995344946e-4) * r
+                    + 0.0151986665636164571966) * r + 0.14810397642748007459) * r
+                  + 0.68976733498510000455) * r + 1.6763848301838038494) * r
+                + 2.05319162663775882187) * r + 1.0)
+    else:
+        r -= 5.0
+        num = (((((((2.01033439929228813265e-7 * r + 2.71155556874348757815e-5) * r
+                    + 0.0012426609473880784386) * r + 0.026532189526576123093) * r
+                  + 0.29656057182850489123) * r + 1.7848265399172913358) * r
+                + 5.4637849111641143699) * r + 6.6579046435011037772)
+        den = (((((((2.04426310338993978564e-15 * r + 1.4215117583164458887e-7) * r
+                    + 1.8463183175100546818e-5) * r + 7.868691311456132591e-4) * r
+                  + 0.0148753612908506148525) * r + 0.13692988092273580531) * r
+                + 0.59983220655588793769) * r + 1.0)
+    val = num / den
+    return -val if q < 0.0 else val
+
+
+@njit(cache=True, nogil=True)
+def _normals_flat(u: np.ndarray, clip: float) -> None:
+    hi = 1.0 - clip
+    for i in range(u.size):
+        p = u[i]
+        if p < clip:
+            p = clip
+        elif p > hi:
+            p = hi
+        u[i] = _ppnd16(p)
+
+
+def uniforms_to_normals(u: np.ndarray, clip: float) -> np.ndarray:
+    """Standard normals from uniforms, in place (a C-contiguous float64 array of any shape).
+
+    >>> import numpy as np
+    >>> uniforms_to_normals(np.array([0.5, 0.975, 0.0]), 1e-16).round(6).tolist()
+    [0.0, 1.959964, -8.222082]
+    """
+    if not (u.flags.c_contiguous and u.dtype == np.float64):
+        raise ValueError("uniforms_to_normals needs a C-contiguous float64 array")
+    _normals_flat(u.reshape(-1), clip)
+    return u
+
+
+@njit(cache=True, nogil=True)
+def _log_paths(z: np.ndarray, drift: np.ndarray, factor: np.ndarray,
+               log_spots: np.ndarray) -> None:
+    n, n_a, n_s = z.shape
+    for i in range(n):
+        for k in range(n_s):
+            # assets from the last down: asset a reads the normals of assets b <= a, which are
+            # still untouched when it overwrites its own
+            for a in range(n_a - 1, -1, -1):
+                inc = drift[a, k]
+                for b in range(a + 1):
+                    inc += factor[k, a, b] * z[i, b, k]
+                prev = log_spots[a] if k == 0 else z[i, a, k - 1]
+                z[i, a, k] = prev + inc
+
+
+def log_paths(z: np.ndarray, drift: np.ndarray, factor: np.ndarray,
+              log_spots: np.ndarray) -> np.ndarray:
+    """Log-levels on the grid from step normals ``z`` (paths, assets, steps), in place:
+    ``x[a, k] = x[a, k-1] + drift[a, k] + sum_{b <= a} factor[k, a, b] z[b, k]``,
+    ``x[a, -1] = log_spots[a]``."""
+    if not (z.flags.c_contiguous and z.dtype == np.float64):
+        z = np.ascontiguousarray(z, dtype=np.float64)
+    _log_paths(z, np.ascontiguousarray(drift, dtype=np.float64),
+               np.ascontiguousarray(factor, dtype=np.float64),
+               np.ascontiguousarray(log_spots, dtype=np.float64))
+    return z
