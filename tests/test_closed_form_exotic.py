@@ -701,3 +701,20 @@ def test_discrete_quadrature_tends_to_continuous_monitoring():
                                         "call", "down", "out")
     assert ki + ko == pytest.approx(cf.bsm_price(100.0, 100.0, T, 0.08, 0.04, 0.25, "call"),
                                     abs=1e-12)
+
+
+def test_bivariate_normal_cdf_against_plackett_quadrature():
+    # reference: Plackett's identity dM/drho = phi_2(a, b; rho), integrated from M = Phi(a) Phi(b)
+    # at rho = 0 by scipy's adaptive quadrature (independent of Genz's algorithm used in code)
+    rng = np.random.default_rng(7)
+    for _ in range(300):
+        a, b = rng.normal(0.0, 2.0, 2)
+        rho = float(rng.choice([rng.uniform(-1, 1), rng.uniform(0.92, 0.9999),
+                                rng.uniform(-0.9999, -0.92)]))
+
+        def density(r, a=a, b=b):
+            return math.exp(-(a * a - 2 * r * a * b + b * b) / (2 * (1 - r * r))) / (
+                2 * math.pi * math.sqrt(1 - r * r))
+        ref = norm.cdf(a) * norm.cdf(b) + quad(density, 0.0, rho, epsabs=1e-14,
+                                               epsrel=1e-12, limit=200)[0]
+        assert cf.bivariate_normal_cdf(a, b, rho) == pytest.approx(ref, abs=1e-12)

@@ -171,9 +171,11 @@ def test_sobol_puts_every_assets_terminal_value_first():
     z = smp.normals(smp.plan(64)[:1], 3, t)
     terminal = z.sum(axis=2) * 0.5  # W(1) / sqrt(1) from the normalised increments (dt=0.25)
     from scipy.special import ndtri
-    from scipy.stats import qmc
-    rng = np.random.Generator(np.random.PCG64(smp._seq(0)))
-    u = qmc.Sobol(12, scramble=True, seed=rng).random(4)
+
+    from fairpath import sobol
+    from fairpath.sampling import _scrambled
+    sv, shift = _scrambled(smp.seed, (0,), 12)  # scrambling 0 of the 12-dimensional sequence
+    u = sobol.points(sv, shift, 0, 4).T
     assert np.allclose(terminal, ndtri(u[:, :3]))
 
 

@@ -74,6 +74,7 @@ References
 
 from __future__ import annotations
 
+import math
 from typing import NamedTuple
 
 import numpy as np
@@ -1173,19 +1174,25 @@ def gap_option(spot: ArrayLike, strike: ArrayLike, trigger: ArrayLike, T: ArrayL
 # --------------------------------------------------------------------------- two assets
 
 
+#: Gauss-Legendre nodes and weights (the negative half) for the bivariate normal CDF
+_GAUSS_LEGENDRE = {n: tuple(a[: n // 2] for a in np.polynomial.legendre.leggauss(n))
+                   for n in (6, 12, 20)}
+
+
 def bivariate_normal_cdf(a: float, b: float, rho: float) -> float:
     """``P(X <= a, Y <= b)`` for standard normals with correlation ``rho``.
 
-    Plackett's identity ``dM/drho = phi_2(a, b; rho)`` integrated from 0, where the value is
-    ``Phi(a) Phi(b)``, by adaptive quadrature to about 1e-13.
+    Genz's algorithm (A. Genz, "Numerical computation of rectangular bivariate and trivariate
+    normal and t probabilities", Statistics and Computing 14, 2004, 251-260, after Drezner and
+    Wesolowsky 1990): Gauss-Legendre quadrature of Plackett's integral in ``arcsin(rho)`` for
+    ``|rho| < 0.925``, and of an expansion around the singular limit above; accurate to about
+    1e-15 (tested against an adaptive quadrature of Plackett's identity).
 
     Examples
     --------
     >>> round(bivariate_normal_cdf(0.0, 0.0, 0.5), 10)  # 1/4 + arcsin(rho) / (2 pi) = 1/3
     0.3333333333
     """
-    from scipy.integrate import quad
-
     if not -1.0 <= rho <= 1.0:
         raise InputError(f"must be in [-1, 1], got {rho}", source="bivariate_normal_cdf",
                          key="rho")
@@ -1195,18 +1202,54 @@ def bivariate_normal_cdf(a: float, b: float, rho: float) -> float:
         return float(ndtr(b))
     if b == np.inf:
         return float(ndtr(a))
+    return _upper_bivariate(-a, -b, rho)
 
-    def density(r: float) -> float:
-        one = 1.0 - r * r
-        if one <= 0.0:
-            return 0.0
-        return float(np.exp(-(a * a - 2.0 * r * a * b + b * b) / (2.0 * one))
-                     / (2.0 * np.pi * np.sqrt(one)))
 
-    extra, _ = quad(density, 0.0, rho, epsabs=1e-14, epsrel=1e-12, limit=200)
-    if abs(rho) == 1.0:  # the limit: comonotone or countermonotone normals
-        return float(ndtr(min(a, b)) if rho > 0 else max(ndtr(a) + ndtr(b) - 1.0, 0.0))
-    return float(ndtr(a) * ndtr(b) + extra)
+def _upper_bivariate(h: float, k: float, r: float) -> float:
+    """``P(X > h, Y > k)``, Genz's BVND."""
+    two_pi = 2.0 * math.pi
+    ar = abs(r)
+    x, w = _GAUSS_LEGENDRE[6 if ar < 0.3 else 12 if ar < 0.75 else 20]
+    hk = h * k
+    if ar < 0.925:
+        hs = (h * h + k * k) / 2.0
+        asr = math.asin(r)
+        s1 = np.sin(asr * (x + 1.0) / 2.0)
+        s2 = np.sin(asr * (1.0 - x) / 2.0)
+        total = np.sum(w * (np.exp((s1 * hk - hs) / (1.0 - s1 * s1))
+                            + np.exp((s2 * hk - hs) / (1.0 - s2 * s2))))
+        return float(total * asr / (2.0 * two_pi) + ndtr(-h) * ndtr(-k))
+    if r < 0:
+        k, hk = -k, -hk
+    bvn = 0.0
+    if ar < 1.0:
+        as_ = (1.0 - r) * (1.0 + r)
+        a = math.sqrt(as_)
+        bs = (h - k) ** 2
+        c = (4.0 - hk) / 8.0
+        d = (12.0 - hk) / 16.0
+        bvn = a * math.exp(-(bs / as_ + hk) / 2.0) * (
+            1.0 - c * (bs - as_) * (1.0 - d * bs / 5.0) / 3.0 + c * d * as_ * as_ / 5.0)
+        if hk > -160.0:
+            b = math.sqrt(bs)
+            bvn -= (math.exp(-hk / 2.0) * math.sqrt(two_pi) * float(ndtr(-b / a)) * b
+                    * (1.0 - c * bs * (1.0 - d * bs / 5.0) / 3.0))
+        a /= 2.0
+        for sign in (-1.0, 1.0):
+            xs = (a * (sign * x + 1.0)) ** 2
+            rs = np.sqrt(1.0 - xs)
+            asr = -(bs / xs + hk) / 2.0
+            with np.errstate(under="ignore", over="ignore"):
+                term = a * w * np.exp(asr) * (np.exp(-hk * (1.0 - rs) / (2.0 * (1.0 + rs))) / rs
+                                              - (1.0 + c * xs * (1.0 + d * xs)))
+            bvn += float(np.sum(np.where(asr > -100.0, term, 0.0)))
+        bvn = -bvn / two_pi
+    if r > 0:
+        return bvn + float(ndtr(-max(h, k)))
+    bvn = -bvn
+    if k > h:
+        bvn += float(ndtr(k) - ndtr(h))
+    return bvn
 
 
 def two_asset_min_max(s1: float, s2: float, strike: float, T: float, r: float, q1: float,

@@ -37,6 +37,7 @@ from scipy import stats
 
 from fairpath.dates import weekdays_between
 from fairpath.errors import FairpathError, InputError, SamplingWarning
+from fairpath.kernels import moments
 from fairpath.market import Market
 from fairpath.models import GBM, simulate_log_levels
 from fairpath.products.base import ControlVariate, PathSet, Product
@@ -181,15 +182,9 @@ class Moments:
 
     @classmethod
     def of(cls, v: np.ndarray) -> Moments:
-        n = v.shape[0]
-        mean = v.sum(axis=0) / n
-        d = v - mean
-        k = v.shape[1]
-        m2 = np.empty((k, k))
-        for i in range(k):  # explicit pairwise sums: the same arithmetic for any chunking
-            for j in range(i, k):
-                m2[i, j] = m2[j, i] = (d[:, i] * d[:, j]).sum()
-        return cls(n, mean, m2)
+        # a compiled two-pass loop in row order: the same arithmetic for any chunking
+        mean, m2 = moments(v)
+        return cls(v.shape[0], mean, m2)
 
     def merge(self, other: Moments) -> Moments:
         n = self.n + other.n
@@ -293,85 +288,131 @@ class Simulation:
                    ) -> dict[Block, BlockResult]:
         """Simulate ``blocks``; return each block's moments for every product.
 
-        Blocks go to a pool of threads (the compiled kernels and numpy release the GIL): one
-        block at a time for pseudo-random numbers, one scrambling's blocks in order for Sobol
-        (its generator runs forward). A block is simulated in pieces of at most
-        ``chunk_paths`` paths (memory), and its moments are taken once all its pieces are in,
-        so neither the piece size nor the number of threads changes a number.
+        Work goes to a pool of threads (the compiled kernels and numpy release the GIL) in
+        units: one Sobol scrambling's blocks in order (its generator runs forward), or a run of
+        pseudo-random blocks. Within a unit, paths are simulated in batches of at most
+        ``chunk_paths`` (memory): small blocks are batched together, a large block is split
+        into pieces. A block's moments are taken once all its paths are in, so neither the
+        batch size nor the number of threads changes a number.
         """
         n_a = len(self.names)
         per_path = max(1, n_a * max(self.steps, 1) * 8 * 3)
         if chunk_paths is None:
             chunk_paths = max(64, CHUNK_BYTES // per_path)
         piece = max(2, int(chunk_paths))
+        workers = engine_threads(self.threads)
         units: list[list[Block]] = []
-        for b in blocks:
-            if units and self.sampler.replicates is not None and units[-1][-1].stream == b.stream:
-                units[-1].append(b)
-            else:
-                units.append([b])
+        if self.sampler.replicates is not None:
+            for b in blocks:
+                if units and units[-1][-1].stream == b.stream:
+                    units[-1].append(b)
+                else:
+                    units.append([b])
+        else:
+            total = sum(b.size for b in blocks)
+            size = -(-total // (4 * workers))  # a few units per thread
+            for b in blocks:
+                if units and sum(x.size for x in units[-1]) + b.size <= size:
+                    units[-1].append(b)
+                else:
+                    units.append([b])
         bar = None
         if self.progress and len(blocks) > 1:
             from tqdm.auto import tqdm
             bar = tqdm(total=sum(b.size for b in blocks), unit="path", leave=False,
                        desc=self.products[0].label()[:30])
 
-        def run_unit(unit: list[Block]) -> list[tuple[Block, BlockResult]]:
-            return [(b, self._run_block(b, piece)) for b in unit]
+        def run_unit(unit: list[Block]) -> dict[Block, BlockResult]:
+            return self._run_unit(unit, piece)
 
         out: dict[Block, BlockResult] = {}
-        workers = min(engine_threads(self.threads), len(units))
+        workers = min(workers, len(units))
         try:
             if workers > 1:
                 with ThreadPoolExecutor(max_workers=workers) as pool:
                     for done in pool.map(run_unit, units):
                         out.update(done)
                         if bar is not None:
-                            bar.update(sum(b.size for b, _ in done))
+                            bar.update(sum(b.size for b in done))
             else:
                 for unit in units:
                     done = run_unit(unit)
                     out.update(done)
                     if bar is not None:
-                        bar.update(sum(b.size for b, _ in done))
+                        bar.update(sum(b.size for b in done))
         finally:
             if bar is not None:
                 bar.close()
         return out
 
-    def _run_block(self, b: Block, piece: int) -> BlockResult:
-        """One block, simulated in pieces; moments and sums over the whole block at the end."""
+    def _run_unit(self, unit: list[Block], piece: int) -> dict[Block, BlockResult]:
+        """The blocks of one unit, simulated in batches of at most ``piece`` paths."""
         n_p = len(self.products)
-        values: list[list[np.ndarray]] = [[] for _ in range(n_p)]
-        mirrors: list[list[np.ndarray]] = [[] for _ in range(n_p)]
-        diags: list[list[dict]] = [[] for _ in range(n_p)]
-        diag_mirrors: list[list[dict]] = [[] for _ in range(n_p)]
         anti = self.sampler.antithetic
-        for z, k in self.sampler.pieces(b, len(self.names), self.grid_times, piece):
+        # per block and product: the per-path values and diagnostics of its pieces, draws
+        # and mirrors apart, to be joined in the order of the whole block
+        parts: dict[Block, list] = {b: [[[], [], [], []] for _ in range(n_p)] for b in unit}
+        left = {b: (b.size // 2 if anti else b.size) for b in unit}
+        out: dict[Block, BlockResult] = {}
+
+        def pieces():
+            for drawn in self.sampler.unit_pieces(unit, len(self.names), self.grid_times,
+                                                  piece):
+                yield from drawn
+
+        batch: list[tuple[Block, np.ndarray, int]] = []
+
+        def flush():
+            z = batch[0][1] if len(batch) == 1 else np.concatenate([p[1] for p in batch])
             x = simulate_log_levels(self.params, self.spots, z)
             for j, (prod, ctl, ps) in enumerate(zip(self.products, self.controls,
                                                     self.pathsets(x), strict=True)):
                 pay, diag = prod.evaluate(ps)
                 v = self.sample_values(prod, ctl, ps, pay)
-                if anti:  # draws first, then their mirrors, as in the whole block
-                    values[j].append(v[:k])
-                    mirrors[j].append(v[k:])
-                    diags[j].append({n: a[:k] for n, a in diag.items()})
-                    diag_mirrors[j].append({n: a[k:] for n, a in diag.items()})
-                else:
-                    values[j].append(v)
-                    diags[j].append(diag)
+                off = 0
+                for b, zb, k in batch:
+                    m = zb.shape[0]
+                    vb = v[off:off + m]
+                    db = {n: a[off:off + m] for n, a in diag.items()}
+                    slot = parts[b][j]
+                    if anti:  # draws first, then their mirrors, as in the whole block
+                        slot[0].append(vb[:k])
+                        slot[1].append(vb[k:])
+                        slot[2].append({n: a[:k] for n, a in db.items()})
+                        slot[3].append({n: a[k:] for n, a in db.items()})
+                    else:
+                        slot[0].append(vb)
+                        slot[2].append(db)
+                    off += m
+            for b, _, k in batch:
+                left[b] -= k
+                if left[b] == 0:
+                    out[b] = self._finish_block(b, parts.pop(b))
+            batch.clear()
+
+        size = 0
+        for b, z, k in pieces():
+            if batch and size + z.shape[0] > piece:
+                flush()
+                size = 0
+            batch.append((b, z, k))
+            size += z.shape[0]
+        if batch:
+            flush()
+        return out
+
+    def _finish_block(self, b: Block, slots: list) -> BlockResult:
         moments, dsum, paying = [], [], []
-        for j in range(n_p):
-            v = np.concatenate(values[j] + mirrors[j])
+        for draws, mirrors, d_draws, d_mirrors in slots:
+            v = np.concatenate(draws + mirrors)
             paying.append(int(np.count_nonzero(v[:, 0])))
-            if anti:
+            if self.sampler.antithetic:
                 h = b.size // 2
                 v = 0.5 * (v[:h] + v[h:])
             moments.append(Moments.of(v))
-            parts = diags[j] + diag_mirrors[j]
-            dsum.append({n: float(np.sum(np.concatenate([p[n] for p in parts])))
-                         for n in (parts[0] if parts else {})})
+            ds = d_draws + d_mirrors
+            dsum.append({n: float(np.sum(np.concatenate([p[n] for p in ds])))
+                         for n in (ds[0] if ds else {})})
         return BlockResult(tuple(moments), tuple(dsum), tuple(paying))
 
     def payoff_samples(self, blocks: list[Block]) -> np.ndarray:

@@ -2,11 +2,11 @@
 
 Two samplers hand out standard normal increments, shape ``(n, assets, steps)``, block by block:
 
-* :class:`SobolSampler`: scrambled Sobol points (``scipy.stats.qmc.Sobol``, Owen-type linear
-  matrix scrambling plus digital shift), ``replicates`` independent scramblings so the standard
-  error comes from their spread (randomized QMC). The time steps are ordered by a Brownian bridge
-  and the assets interleaved, so the first coordinates carry the terminal value of every asset,
-  the next ones the mid-points, and so on.
+* :class:`SobolSampler`: scrambled Sobol points (:mod:`fairpath.sobol`: Joe-Kuo direction
+  numbers, Owen-type linear matrix scrambling plus digital shift), ``replicates`` independent
+  scramblings so the standard error comes from their spread (randomized QMC). The time steps
+  are ordered by a Brownian bridge and the assets interleaved, so the first coordinates carry
+  the terminal value of every asset, the next ones the mid-points, and so on.
 * :class:`PseudoSampler`: PCG64 streams, one per block, spawned from one ``SeedSequence``.
 
 Both turn uniforms into normals by the inverse normal CDF (Wichura's AS 241, compiled; it agrees
@@ -20,12 +20,13 @@ size or on the number of threads.
 
 from __future__ import annotations
 
+import functools
 import warnings
 from dataclasses import dataclass
 
 import numpy as np
-from scipy.stats import qmc
 
+from fairpath import sobol
 from fairpath.errors import InputError, SamplingWarning
 from fairpath.kernels import uniforms_to_normals
 
@@ -34,8 +35,8 @@ from fairpath.kernels import uniforms_to_normals
 UNIFORM_CLIP = 1e-16
 #: Paths per block (the unit of randomness and of accumulation).
 BLOCK_SIZE = 4096
-#: Largest dimension scipy's Sobol generator supports.
-SOBOL_MAX_DIM = 21201
+#: Largest dimension of the Sobol direction numbers.
+SOBOL_MAX_DIM = sobol.MAX_DIM
 #: Default number of independent scramblings for randomized QMC.
 DEFAULT_REPLICATES = 16
 #: Seed used when none is given: results are reproducible by default.
@@ -195,6 +196,13 @@ class Sampler:
             done += k
             yield (self._mirror(z, 2 * k) if self.antithetic else z), k
 
+    def unit_pieces(self, blocks: list[Block], n_assets: int, times: np.ndarray, piece: int):
+        """Pieces of several blocks, in block order: lists of ``(block, normals, draws)`` that
+        come from one draw (by default each block's own :meth:`pieces`)."""
+        for b in blocks:
+            for z, k in self.pieces(b, n_assets, times, piece):
+                yield [(b, z, k)]
+
     def _start(self, block: Block, n_assets: int, times: np.ndarray):
         raise NotImplementedError  # pragma: no cover
 
@@ -256,7 +264,6 @@ class SobolSampler(Sampler):
             raise InputError(f"replicates must be an integer >= 2, got {replicates!r}",
                              key="replicates")
         self.replicates = replicates
-        self._engines: dict[tuple[int, int], tuple[qmc.Sobol, int]] = {}
         self._bridges: dict[bytes, BrownianBridge] = {}
 
     def plan(self, paths: int) -> list[Block]:
@@ -288,18 +295,9 @@ class SobolSampler(Sampler):
     def dimension(self, n_assets: int, steps: int) -> int:
         return n_assets * steps
 
-    def _engine(self, rep: int, dim: int, start: int) -> qmc.Sobol:
-        """Scrambled engine of one replicate, positioned at point ``start`` (cached, sequential)."""
-        key = (rep, dim)
-        cached = self._engines.get(key)
-        if cached is not None and cached[1] == start:
-            return cached[0]
-        rng = np.random.Generator(np.random.PCG64(self._seq(rep)))
-        eng = qmc.Sobol(dim, scramble=True, seed=rng)
-        if start:
-            eng.fast_forward(start)
-        self._engines[key] = (eng, start)
-        return eng
+    def _scrambling(self, rep: int, dim: int) -> tuple[np.ndarray, np.ndarray]:
+        """Scrambled direction numbers and shift of replicate ``rep`` (cached, read-only)."""
+        return _scrambled(self.seed, (*self.stream_key, rep), dim)
 
     def _bridge(self, times: np.ndarray) -> BrownianBridge:
         key = np.asarray(times, dtype=float).tobytes()
@@ -314,6 +312,35 @@ class SobolSampler(Sampler):
         z = self._draw(state, draws, n_assets, times)
         return self._mirror(z, block.size) if self.antithetic else z
 
+    def unit_pieces(self, blocks, n_assets, times, piece):
+        """Consecutive blocks of one scrambling are drawn together, up to ``piece`` paths a
+        draw (the same points as block by block: the generator runs forward)."""
+        per = max(1, piece // 2 if self.antithetic else piece)
+        i = 0
+        while i < len(blocks):
+            run = [blocks[i]]
+            while (i + len(run) < len(blocks) and blocks[i + len(run)].stream == run[0].stream
+                   and blocks[i + len(run)].start == run[-1].start + run[-1].size):
+                run.append(blocks[i + len(run)])
+            i += len(run)
+            sizes = [b.size // 2 if self.antithetic else b.size for b in run]
+            state = self._start(run[0], n_assets, times)
+            j, used = 0, 0  # current block, draws of it already handed out
+            while j < len(run):
+                k = min(per, sum(sizes[j:]) - used)
+                z = self._draw(state, k, n_assets, times)
+                out, off = [], 0
+                while off < k:
+                    take = min(k - off, sizes[j] - used)
+                    part = z[off:off + take]
+                    out.append((run[j], self._mirror(part, 2 * take) if self.antithetic
+                                else part, take))
+                    off += take
+                    used += take
+                    if used == sizes[j]:
+                        j, used = j + 1, 0
+                yield out
+
     def _start(self, block, n_assets, times):
         steps = len(times)
         dim = n_assets * steps
@@ -327,15 +354,12 @@ class SobolSampler(Sampler):
     def _draw(self, state, k, n_assets, times):
         stream, dim, first = state
         steps = len(times)
-        eng = self._engine(stream, dim, first)
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore", UserWarning)  # we issue our own balance warning
-            u = eng.random(k)
-        self._engines[(stream, dim)] = (eng, first + k)
+        sv, shift = self._scrambling(stream, dim)
+        u = sobol.points(sv, shift, first, k)  # one row per coordinate
         state[2] = first + k
         # coordinate c = j * n_assets + a: bridge step j of asset a (every asset's coarse path
         # comes before any asset's finer points)
-        zt = to_normal(np.ascontiguousarray(u.T)).reshape(steps, n_assets * k)
+        zt = to_normal(u).reshape(steps, n_assets * k)
         if steps > 1:
             zt = self._bridge(times).increments_rows(zt)
         return np.ascontiguousarray(zt.reshape(steps, n_assets, k).transpose(2, 1, 0))
@@ -357,3 +381,15 @@ def _check_paths(paths) -> int:
     if isinstance(paths, bool) or not isinstance(paths, int | np.integer) or paths < 2:
         raise InputError(f"paths must be an integer >= 2, got {paths!r}", key="paths")
     return int(paths)
+
+
+@functools.lru_cache(maxsize=256)
+def _scrambled(seed: int, spawn_key: tuple[int, ...], dim: int) -> tuple[np.ndarray, np.ndarray]:
+    """One independent scrambling (LMS + digital shift, :mod:`fairpath.sobol`) of the stream
+    ``SeedSequence(seed, spawn_key)``; read-only arrays, shared safely between threads."""
+    rng = np.random.Generator(np.random.PCG64(np.random.SeedSequence(seed,
+                                                                     spawn_key=spawn_key)))
+    sv, shift = sobol.scrambled(dim, rng)
+    sv.setflags(write=False)
+    shift.setflags(write=False)
+    return sv, shift

@@ -14,6 +14,12 @@ The geometric average of lognormal levels is lognormal, so the geometric option 
 form under the engine's model (Kemna & Vorst 1990 for the continuous average; the discrete form
 follows from the covariance ``Cov(log S_i, log S_j) = w(min(t_i, t_j))``, ``w`` the integrated
 variance). It prices geometric Asians exactly and is the control variate of arithmetic ones.
+
+A fixed-strike arithmetic Asian under normal shocks is estimated by conditional Monte Carlo:
+each path contributes the option's expected value given its shape, integrating the direction
+of the geometric average analytically (see :meth:`Asian._conditional_payoff`); the expectation
+is the price itself, and the error bar shrinks about tenfold at equal paths. ``raw_payoff``
+keeps the plain discounted payoff (for pictures of the payoff distribution).
 """
 
 from __future__ import annotations
@@ -28,6 +34,7 @@ import numpy as np
 from fairpath import closed_form as cf
 from fairpath.dates import schedule_dates
 from fairpath.errors import InputError
+from fairpath.kernels import average_option_given_shape
 from fairpath.market import Market
 from fairpath.products.base import ControlVariate, PathSet, Product, pathwise_from_gradient
 from fairpath.products.vanilla import RIGHTS
@@ -164,7 +171,44 @@ class Asian(Product):
         return np.maximum(intrinsic, 0.0) * ps.df(self.expiry)
 
     def payoff(self, paths: PathSet) -> np.ndarray:
+        if self.conditional(paths.market):
+            return self._conditional_payoff(paths) * self.quantity
         return self._payoff(paths, self.average == "geometric") * self.quantity
+
+    def raw_payoff(self, paths: PathSet) -> np.ndarray:
+        return self._payoff(paths, self.average == "geometric") * self.quantity
+
+    def conditional(self, market: Market) -> bool:
+        """Is the arithmetic average integrated along the geometric average analytically?
+        (Fixed strike, normal shocks, some future fixing with variance.)"""
+        if self.average != "arithmetic" or self.floating or market.non_normal((self.asset,)):
+            return False
+        t = [market.time(d) for d in self.future_fixings]
+        return bool(t) and max(t) > 0 and float(market.asset(self.asset).vol.variance(
+            0.0, max(t))) > 0
+
+    def _conditional_payoff(self, ps: PathSet) -> np.ndarray:
+        """``E[payoff | path shape]``: the log-levels of the future fixings are jointly normal
+        (mean ``log F(t_i) - w(t_i)/2``, covariance ``w(min(t_i, t_j))``); given everything but
+        their mean ``Y`` (the log geometric average of the future fixings), the arithmetic
+        average is a sum of exponentials of ``Y``, and the option's conditional value is a sum
+        of normal CDFs at the root of ``A = K`` (conditioning on the geometric mean, Curran
+        1994). Same expectation as the payoff, far less variance; exact, not an approximation."""
+        market = ps.market
+        fut = self.future_fixings
+        n = len(self.fixings)
+        t = np.array([max(market.time(d), 0.0) for d in fut])
+        w = market.asset(self.asset).vol.variance(0.0, t)
+        cov = np.minimum.outer(w, w)
+        m = np.log(market.forward(self.asset, t)) - 0.5 * w
+        yw = np.full(len(fut), 1.0 / len(fut))
+        v_y = float(yw @ cov @ yw)
+        beta = cov @ yw / v_y
+        k_eff = float(self.strike) - float(np.sum(self.past_fixings)) / n
+        x = ps.log_levels(self.asset, fut)
+        value = average_option_given_shape(x, np.full(len(fut), 1.0 / n), beta, yw,
+                                           float(yw @ m), v_y, k_eff, self.right == "put")
+        return value * ps.df(self.expiry)
 
     def controls(self, market: Market) -> list[ControlVariate]:
         out = []

@@ -8,6 +8,7 @@ needs their levels; the engine simulates those levels and calls :meth:`Product.p
 from __future__ import annotations
 
 import bisect
+import math
 from collections.abc import Callable
 from dataclasses import dataclass, field
 from datetime import date
@@ -92,6 +93,21 @@ class PathSet:
     def level(self, name: str, d: date) -> np.ndarray:
         """Levels of one asset on one observation date, shape (paths,)."""
         return self.levels[:, self.names.index(name), self.dates.index(d)]
+
+    def log_levels(self, name: str, dates) -> np.ndarray:
+        """Natural logs of one asset's levels on ``dates`` (each a grid date or the valuation
+        date), shape (paths, dates), read from the simulated log-levels."""
+        i = self.names.index(name)
+        out = np.empty((self.n, len(dates)))
+        for k, d in enumerate(dates):
+            if d == self.market.valuation_date:
+                out[:, k] = math.log(self.spots[i])
+            else:
+                g = bisect.bisect_left(self.grid_dates, d)
+                if g >= len(self.grid_dates) or self.grid_dates[g] != d:
+                    raise ValueError(f"{d} is not on the simulation grid")
+                out[:, k] = self.grid_log_levels[:, i, g]
+        return out
 
     def grid_columns(self, start: date, end: date) -> np.ndarray:
         """Indices of the grid dates ``d`` with ``start < d <= end`` (a contiguous range: the
