@@ -12,7 +12,9 @@ the chunk size or the number of threads.
   ``scipy.special.ndtri`` to a few units in the last place (tested), at about half its cost.
 * :func:`log_paths`: the exact GBM steps on a grid, correlated by each step's lower-triangular
   factor, accumulated into log-levels, in place.
-* :func:`moments`: a block's mean vector and centred cross-products in row order.
+* :func:`moments`: a block's mean vector and centred cross-products in row order, and
+  :func:`merge_moments`, the blocks' moments merged in order (Chan, Golub and LeVeque's
+  pairwise update).
 * :func:`average_option_given_shape`: an average-price option's value given a path's shape
   (the conditional estimator of :class:`fairpath.products.asian.Asian`).
 """
@@ -23,6 +25,8 @@ from math import erfc
 
 import numpy as np
 from numba import njit
+
+_SQRT_HALF = 0.7071067811865476
 
 
 @njit(cache=True, nogil=True, inline="always")
@@ -95,6 +99,13 @@ def uniforms_to_normals(u: np.ndarray, clip: float) -> np.ndarray:
 def _log_paths(z: np.ndarray, drift: np.ndarray, factor: np.ndarray,
                log_spots: np.ndarray) -> None:
     n, n_a, n_s = z.shape
+    if n_a == 1:  # one asset: a running sum per path
+        for i in range(n):
+            acc = log_spots[0]
+            for k in range(n_s):
+                acc += drift[0, k] + factor[k, 0, 0] * z[i, 0, k]
+                z[i, 0, k] = acc
+        return
     for i in range(n):
         for k in range(n_s):
             # assets from the last down: asset a reads the normals of assets b <= a, which are
@@ -209,4 +220,88 @@ def average_option_given_shape(x: np.ndarray, weights: np.ndarray, beta: np.ndar
                          np.ascontiguousarray(beta, dtype=np.float64),
                          np.ascontiguousarray(y_weights, dtype=np.float64), float(m_y),
                          float(v_y), float(k_eff), bool(put), out)
+    return out
+
+
+@njit(cache=True, nogil=True)
+def _merge(ns, means, m2s, mean, m2):
+    b, k = means.shape
+    n = ns[0]
+    for j in range(k):
+        mean[j] = means[0, j]
+        for i in range(k):
+            m2[j, i] = m2s[0, j, i]
+    for p in range(1, b):
+        n2 = ns[p]
+        total = n + n2
+        f = n * n2 / total
+        for j in range(k):
+            dj = means[p, j] - mean[j]
+            for i in range(k):
+                m2[j, i] += m2s[p, j, i] + dj * (means[p, i] - mean[i]) * f
+        for j in range(k):
+            mean[j] += (means[p, j] - mean[j]) * (n2 / total)
+        n = total
+    return n
+
+
+def merge_moments(ns: np.ndarray, means: np.ndarray, m2s: np.ndarray
+                  ) -> tuple[int, np.ndarray, np.ndarray]:
+    """Count, mean and centred cross-products of the union of blocks, merged in order:
+    ``m2 = m2_a + m2_b + delta delta' n_a n_b / n``, ``mean = mean_a + delta n_b / n``."""
+    k = means.shape[1]
+    mean = np.empty(k)
+    m2 = np.empty((k, k))
+    n = _merge(np.ascontiguousarray(ns, dtype=np.int64),
+               np.ascontiguousarray(means, dtype=np.float64),
+               np.ascontiguousarray(m2s, dtype=np.float64), mean, m2)
+    return int(n), mean, m2
+
+
+@njit(cache=True, nogil=True, inline="always")
+def _upper(d, s, fwd):
+    """P(X > level) and E[X 1{X > level}] for log X ~ N(mu, s^2), E[X] = fwd, given
+    d = (mu - log level) / s."""
+    return 0.5 * erfc(-d * _SQRT_HALF), fwd * 0.5 * erfc(-(d + s) * _SQRT_HALF)
+
+
+@njit(cache=True, nogil=True)
+def _extreme_given_last(others, mu, var, k, worst, put, out):
+    n, m = others.shape
+    s = np.sqrt(var)
+    log_k = np.log(k)
+    for p in range(n):
+        e = others[p, 0]
+        for j in range(1, m):
+            e = min(e, others[p, j]) if worst else max(e, others[p, j])
+        lvl = np.exp(e)
+        fwd = np.exp(mu[p] + 0.5 * var)
+        p_l, ex_l = _upper((mu[p] - e) / s, s, fwd)
+        if lvl <= k:
+            p_k, ex_k = p_l, ex_l  # only needed when the strike is the nearer level
+        if lvl != k:
+            p_k, ex_k = _upper((mu[p] - log_k) / s, s, fwd)
+        if worst and put:  # (k - min(m, X))^+ = (k - m)^+ P(X >= m) + E[(k - X) 1{X < min(m, k)}]
+            p_c, ex_c = (p_l, ex_l) if lvl <= k else (p_k, ex_k)
+            out[p] = max(k - lvl, 0.0) * p_l + k * (1.0 - p_c) - (fwd - ex_c)
+        elif worst:  # (min(m, X) - k)^+: X between k and m, or m when X is above it
+            out[p] = (ex_k - ex_l) - k * (p_k - p_l) + (lvl - k) * p_l if lvl > k else 0.0
+        elif not put:  # (max(M, X) - k)^+ = (M - k)^+ P(X <= M) + E[(X - k) 1{X > max(M, k)}]
+            p_c, ex_c = (p_k, ex_k) if lvl <= k else (p_l, ex_l)
+            out[p] = max(lvl - k, 0.0) * (1.0 - p_l) + ex_c - k * p_c
+        elif lvl < k:  # (k - max(M, X))^+: X between M and k, or M when X is below it
+            out[p] = k * (p_l - p_k) - (ex_l - ex_k) + (k - lvl) * (1.0 - p_l)
+        else:
+            out[p] = 0.0
+
+
+def extreme_given_last(others: np.ndarray, mu: np.ndarray, var: float, k: float, worst: bool,
+                       put: bool) -> np.ndarray:
+    """``E[(k - min(M, X))^+ | others]`` and the other three worst/best, call/put cases, per
+    path: ``M`` the worst (best) of the other assets' performances (``others`` holds their
+    logs), ``log X ~ N(mu, var)`` the last asset's given them (lognormal partial moments)."""
+    out = np.empty(others.shape[0])
+    _extreme_given_last(np.ascontiguousarray(others, dtype=np.float64),
+                        np.ascontiguousarray(mu, dtype=np.float64), float(var), float(k),
+                        bool(worst), bool(put), out)
     return out

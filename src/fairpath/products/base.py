@@ -109,6 +109,15 @@ class PathSet:
                 out[:, k] = self.grid_log_levels[:, i, g]
         return out
 
+    def log_levels_at(self, d: date) -> np.ndarray:
+        """Natural logs of every asset's level on one observation date, shape (paths, assets)."""
+        if d == self.market.valuation_date:
+            return np.broadcast_to(np.log(self.spots), (self.n, len(self.names)))
+        g = bisect.bisect_left(self.grid_dates, d)
+        if g >= len(self.grid_dates) or self.grid_dates[g] != d:
+            raise ValueError(f"{d} is not on the simulation grid")
+        return self.grid_log_levels[:, :, g]
+
     def grid_columns(self, start: date, end: date) -> np.ndarray:
         """Indices of the grid dates ``d`` with ``start < d <= end`` (a contiguous range: the
         grid is sorted)."""

@@ -32,6 +32,7 @@ from scipy.special import ndtr
 
 from fairpath import closed_form as cf
 from fairpath.errors import InputError
+from fairpath.kernels import extreme_given_last
 from fairpath.market import Market, integrate_vol_product
 from fairpath.products.base import (
     ControlVariate,
@@ -219,7 +220,8 @@ class Basket(Product):
         the last asset's log-performance is normal (mean ``mu``, variance ``var``), so the
         option on the worst, best or average has a lognormal closed form in it (conditional
         Monte Carlo; the same expectation as the payoff, less variance, smoother for Sobol)."""
-        y = np.log(self.performances(ps))
+        init = self.initial(ps.market)
+        y = ps.log_levels_at(self.expiry) - np.log(init)[None, :]  # log-performances
         others = y[:, :-1]
         mu = mean[-1] + (others - mean[:-1]) @ beta
         s = math.sqrt(var)
@@ -241,27 +243,8 @@ class Basket(Product):
             if self.right == "call":
                 return call
             return call - (rest + w[-1] * fwd - k)  # put-call parity, given the others
-        if self.combine == "worst":
-            m = np.exp(others.min(axis=1))  # the worst of the others
-            p_m, ex_m = above(m)
-            if self.right == "put":  # (k - min(m, X))^+
-                c = np.minimum(m, k)
-                p_c, ex_c = above(c)
-                return np.maximum(k - m, 0.0) * p_m + k * (1.0 - p_c) - (fwd - ex_c)
-            # (min(m, X) - k)^+: X between k and m, or m when X is above it
-            p_k, ex_k = above(np.full_like(m, k))
-            mid = (ex_k - ex_m) - k * (p_k - p_m)
-            return np.where(m > k, mid + (m - k) * p_m, 0.0)
-        big = np.exp(others.max(axis=1))  # best: the best of the others
-        p_b, ex_b = above(big)
-        if self.right == "call":  # (max(M, X) - k)^+
-            c = np.maximum(big, k)
-            p_c, ex_c = above(c)
-            return np.maximum(big - k, 0.0) * (1.0 - p_b) + ex_c - k * p_c
-        # (k - max(M, X))^+: X between M and k, or M when X is below it
-        p_k, ex_k = above(np.full_like(big, k))
-        mid = k * (p_b - p_k) - (ex_b - ex_k)
-        return np.where(big < k, mid + (k - big) * (1.0 - p_b), 0.0)
+        return extreme_given_last(others, mu, var, k, self.combine == "worst",
+                                  self.right == "put")
 
     # -- controls ------------------------------------------------------------------------
     def _geometric(self, ps: PathSet) -> np.ndarray:
@@ -293,10 +276,18 @@ class Basket(Product):
         t = market.time(self.expiry)
         if t <= 0:
             return []
-        out = [ControlVariate("geometric basket", self._geometric, self.geometric_value(market))]
         df = float(market.discount.df(t))
         r = float(market.discount.zero(t))
         init = self.initial(market)
+        if self.combine != "average" and len(self.assets) >= 3 \
+                and _terminal_law(self, market) is not None:
+            # the last asset is integrated analytically: the pairs of the others track what
+            # is left far better than single vanillas, at a fraction of the work
+            last = self.assets[-1]
+            return [c for c in self._pair_controls(market, t, r, df, init)
+                    if last not in c.name.split(" ")[0].split("/")] + \
+                Product.controls(self, market)
+        out = [ControlVariate("geometric basket", self._geometric, self.geometric_value(market))]
         for i, name in enumerate(self.assets):
             a = market.asset(name)
             mean = float(cf.bsm_price(a.spot / init[i], self.strike_level, t, r,
@@ -306,14 +297,7 @@ class Basket(Product):
                 return self._option(ps.levels[:, i, -1] / i0) * df
             out.append(ControlVariate(f"{name} vanilla", single, mean))
         if self.combine != "average" and len(self.assets) >= 3:
-            pairs = self._pair_controls(market, t, r, df, init)
-            if _terminal_law(self, market) is not None:
-                # the last asset is integrated analytically: the pairs of the others track
-                # what is left far better than single vanillas, at a fraction of the work
-                last = self.assets[-1]
-                return [c for c in pairs if last not in c.name.split(" ")[0].split("/")] + \
-                    Product.controls(self, market)
-            out.extend(pairs)
+            out.extend(self._pair_controls(market, t, r, df, init))
         return out + Product.controls(self, market)
 
     def _pair_controls(self, market: Market, t: float, r: float, df: float,
