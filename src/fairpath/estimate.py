@@ -295,10 +295,11 @@ class Simulation:
         """(paths, 1 + controls): discounted payoff, then each control's value."""
         if payoff is None:
             payoff = product.payoff(ps)
-        cols = [np.asarray(payoff, dtype=float)]
-        cols.extend(np.asarray(c.values(ps), dtype=float) for c in controls)
-        v = np.stack([np.broadcast_to(c, (ps.n,)) for c in cols], axis=1)
-        if not np.all(np.isfinite(v)):
+        v = np.empty((ps.n, 1 + len(controls)))
+        v[:, 0] = payoff
+        for i, c in enumerate(controls, start=1):
+            v[:, i] = c.values(ps)
+        if not np.isfinite(v.sum()):
             bad = "payoff" if not np.all(np.isfinite(v[:, 0])) else "a control variate"
             raise FairpathError(f"non-finite values in the {bad} of {product.label()} "
                                 "(check the product's terms and the market inputs)")
@@ -710,8 +711,8 @@ def price_many(products: list[Product], market: Market, *, paths: int = DEFAULT_
     total = sum(b.size for b in blocks)
     out = []
     for j, p in enumerate(products):
-        est = combine({b: cache[b].moments[j] for b in blocks}, blocks, controls[j], smp,
-                      control_set)
+        est = first if j == 0 else combine({b: cache[b].moments[j] for b in blocks}, blocks,
+                                           controls[j], smp, control_set)
         diag: dict[str, float] = {}
         for b in blocks:
             for k, v in cache[b].diagnostics[j].items():

@@ -45,6 +45,10 @@ from fairpath.products.base import (
 from fairpath.products.vanilla import RIGHTS
 
 COMBINES = ("worst", "best", "average")
+#: Strikes (as multiples of the basket's) of the pair controls when the last asset is
+#: integrated analytically (measured on the benchmark's worst-of put: one pair at three strikes
+#: halved the RMSE over 8 seeds at 32,768 paths, against one strike; five did no better).
+PAIR_MONEYNESS = (0.85, 1.0, 1.2)
 
 
 @dataclass(frozen=True, slots=True)
@@ -283,9 +287,8 @@ class Basket(Product):
                 and _terminal_law(self, market) is not None:
             # the last asset is integrated analytically: the pairs of the others track what
             # is left far better than single vanillas, at a fraction of the work
-            last = self.assets[-1]
-            return [c for c in self._pair_controls(market, t, r, df, init)
-                    if last not in c.name.split(" ")[0].split("/")] + \
+            return self._pair_controls(market, t, r, df, init, skip=self.assets[-1],
+                                       moneyness=PAIR_MONEYNESS) + \
                 Product.controls(self, market)
         out = [ControlVariate("geometric basket", self._geometric, self.geometric_value(market))]
         for i, name in enumerate(self.assets):
@@ -301,15 +304,20 @@ class Basket(Product):
         return out + Product.controls(self, market)
 
     def _pair_controls(self, market: Market, t: float, r: float, df: float,
-                       init: np.ndarray) -> list[ControlVariate]:
-        """The same option on the worst (best) of each pair of assets: Stulz's formula gives
-        its mean (two lognormal terminal levels; term structures enter through the integrated
-        variances and covariance), and it tracks the basket far more closely than one asset."""
+                       init: np.ndarray, skip: str | None = None,
+                       moneyness: tuple[float, ...] = (1.0,)) -> list[ControlVariate]:
+        """The same option on the worst (best) of each pair of assets (not ``skip``), struck at
+        ``moneyness`` times the strike level: Stulz's formula gives each mean (two lognormal
+        terminal levels; term structures enter through the integrated variances and
+        covariance), and they track the basket far more closely than one asset; several
+        strikes of one pair let the regression follow the option's curvature."""
         corr = market.correlation_matrix(self.assets)
         assets = [market.asset(n) for n in self.assets]
         out = []
         for i in range(len(assets)):
             for j in range(i + 1, len(assets)):
+                if skip in (self.assets[i], self.assets[j]):
+                    continue
                 a, b = assets[i], assets[j]
                 wa = float(a.vol.variance(0.0, t))
                 wb = float(b.vol.variance(0.0, t))
@@ -319,19 +327,33 @@ class Basket(Product):
                     / math.sqrt(wa * wb)
                 if 1.0 - abs(rho) < 1e-9 and abs(wa - wb) < 1e-14:
                     continue  # the pair moves as one: Stulz's ratio has no variance
-                mean = cf.two_asset_min_max(a.spot / init[i], b.spot / init[j],
-                                            self.strike_level, t, r, a.dividend_yield,
-                                            b.dividend_yield, math.sqrt(wa / t),
-                                            math.sqrt(wb / t), float(np.clip(rho, -1, 1)),
-                                            self.right,
-                                            "min" if self.combine == "worst" else "max")
+                last: list = [None]  # the pair's level on the latest path set, shared
 
-                def pair(ps: PathSet, i=i, j=j, df=df, i0=init[i], j0=init[j]):
+                def level(ps: PathSet, i=i, j=j, i0=init[i], j0=init[j], last=last):
+                    seen = last[0]
+                    if seen is not None and seen[0] is ps:
+                        return seen[1]
                     x, y = ps.levels[:, i, -1] / i0, ps.levels[:, j, -1] / j0
-                    level = np.minimum(x, y) if self.combine == "worst" else np.maximum(x, y)
-                    return self._option(level) * df
-                out.append(ControlVariate(f"{a.name}/{b.name} {self.combine}-of (Stulz)", pair,
-                                          mean))
+                    lv = np.minimum(x, y) if self.combine == "worst" else np.maximum(x, y)
+                    last[0] = (ps, lv)
+                    return lv
+
+                for mk in moneyness:
+                    k = self.strike_level * mk
+                    mean = cf.two_asset_min_max(a.spot / init[i], b.spot / init[j], k, t, r,
+                                                a.dividend_yield, b.dividend_yield,
+                                                math.sqrt(wa / t), math.sqrt(wb / t),
+                                                float(np.clip(rho, -1, 1)), self.right,
+                                                "min" if self.combine == "worst" else "max")
+
+                    def pair(ps: PathSet, df=df, k=k, level=level):
+                        lv = level(ps)
+                        pay = np.maximum(lv - k, 0.0) if self.right == "call" else \
+                            np.maximum(k - lv, 0.0)
+                        return pay * df
+                    strike = "" if mk == 1.0 else f" at {mk:g} x strike"
+                    out.append(ControlVariate(f"{a.name}/{b.name} {self.combine}-of (Stulz)"
+                                              f"{strike}", pair, mean))
         return out
 
     def has_pathwise(self, market: Market) -> bool:
