@@ -6,6 +6,7 @@
 >>> fp.price(call, market, paths=65536, sampler="sobol", seed=7)   # doctest: +SKIP
 """
 
+from fairpath.book import BookSummary, price_book
 from fairpath.errors import FairpathError, FairpathWarning, InputError, SamplingWarning
 from fairpath.estimate import CAUTION, PriceResult, price, price_many
 from fairpath.greeks import GreekProfile, GreeksResult, greek_profile, greeks
@@ -28,10 +29,10 @@ from fairpath.solve import SolveResult, solve
 __version__ = "0.1.0"
 
 __all__ = [
-    "CAUTION", "REGISTRY", "Asian", "Asset", "Autocallable", "Barrier", "Basket", "Correlation",
+    "Asian", "Asset", "Autocallable", "Barrier", "Basket", "BookSummary", "CAUTION", "Correlation",
     "Digital", "DiscountCurve", "EmpiricalLaw", "European", "FairpathError", "FairpathWarning",
     "GreekProfile", "GreeksResult", "InputError", "Law", "Market", "NormalLaw", "PriceResult",
-    "Product", "QuoteCheck", "QuoteChecks", "SamplingWarning", "SolveResult", "StudentT",
-    "VolCurve", "check_quote", "check_quotes", "greek_profile", "greeks", "load_market",
-    "load_product", "price", "price_many", "solve",
+    "Product", "QuoteCheck", "QuoteChecks", "REGISTRY", "SamplingWarning", "SolveResult",
+    "StudentT", "VolCurve", "check_quote", "check_quotes", "greek_profile", "greeks",
+    "load_market", "load_product", "price", "price_book", "price_many", "solve",
 ]

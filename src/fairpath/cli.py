@@ -1,4 +1,4 @@
-"""Command line: ``fairpath price | greeks | check | solve | validate | demo``.
+"""Command line: ``fairpath price | greeks | check | solve | book | validate | demo``.
 
 Exit status: 0 on success, 2 on bad input (one line on stderr naming the file, the key and the
 problem), 1 on an internal error.
@@ -154,6 +154,19 @@ def build_parser() -> argparse.ArgumentParser:
     _add_law_options(s)
     s.add_argument("--json", action="store_true", help="print one JSON object")
 
+    b = sub.add_parser("book", help="price a book of trades into a CSV, resumably (Dask)")
+    b.add_argument("trades", help="CSV with columns trade_id,product[,quantity]")
+    b.add_argument("--market", required=True, help="market TOML file")
+    b.add_argument("--out", required=True, help="results CSV (rerun with it to resume)")
+    where = b.add_mutually_exclusive_group()
+    where.add_argument("--workers", type=_positive_int, default=None,
+                       help="processes of the local Dask cluster (default: one per core)")
+    where.add_argument("--scheduler", default=None,
+                       help="address of a running Dask scheduler, e.g. tcp://10.0.0.5:8786")
+    b.add_argument("--greeks", action="store_true", help="also compute each trade's Greeks")
+    _add_mc_options(b)
+    _add_law_options(b)
+
     v = sub.add_parser("validate", help="Monte Carlo against the closed forms, with z-scores")
     v.add_argument("--json", action="store_true")
 
@@ -183,6 +196,8 @@ def main(argv: list[str] | None = None) -> int:
             return _solve(args)
         if args.command == "validate":
             return _validate(args)
+        if args.command == "book":
+            return _book(args)
         if args.command == "demo":
             return _demo(args)
     except InputError as exc:
@@ -285,6 +300,20 @@ def _solve(args) -> int:
     res = solve(product, market, args.key, args.target, paths=args.paths, sampler=args.sampler,
                 seed=args.seed, replicates=args.replicates, source=args.product)
     return _emit(res, args.json)
+
+
+def _book(args) -> int:
+    from fairpath.book import price_book
+
+    market = _market(args)
+    summary = price_book(args.trades, market, args.out, workers=args.workers,
+                         scheduler=args.scheduler, greeks=args.greeks, paths=args.paths,
+                         sampler=args.sampler, seed=args.seed, replicates=args.replicates,
+                         progress=sys.stderr.isatty())
+    print(summary)
+    print(f"results in {args.out}")
+    print(f"\n{estimate.CAUTION}")
+    return 0
 
 
 def _validate(args) -> int:

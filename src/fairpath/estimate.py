@@ -589,7 +589,8 @@ def price(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
           control: bool = True, target_stderr: float | None = None,
           max_paths: int = DEFAULT_MAX_PATHS, replicates: int = DEFAULT_REPLICATES,
           chunk_paths: int | None = None, source: str | None = None,
-          progress: bool = False) -> PriceResult:
+          progress: bool = False, threads: int | None = None,
+          stream: tuple[int, ...] = ()) -> PriceResult:
     """Monte Carlo price of ``product`` on ``market``.
 
     Parameters
@@ -612,6 +613,12 @@ def price(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
         Paths simulated at once (memory); never changes the result.
     progress : bool
         Show a progress bar (tqdm; notebook-aware) while simulating.
+    threads : int, optional
+        Threads to simulate with (default: ``FAIRPATH_THREADS`` or every core); never changes
+        the result.
+    stream : tuple of int
+        Extra key of every random stream (``SeedSequence(seed, spawn_key=(*stream, ...))``):
+        a book gives each trade its own numbers this way.
 
     Examples
     --------
@@ -627,7 +634,7 @@ def price(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
     return price_many([product], market, paths=paths, sampler=sampler, seed=seed,
                       antithetic=antithetic, control=control, target_stderr=target_stderr,
                       max_paths=max_paths, replicates=replicates, chunk_paths=chunk_paths,
-                      source=source, progress=progress)[0]
+                      source=source, progress=progress, threads=threads, stream=stream)[0]
 
 
 def price_many(products: list[Product], market: Market, *, paths: int = DEFAULT_PATHS,
@@ -635,7 +642,8 @@ def price_many(products: list[Product], market: Market, *, paths: int = DEFAULT_
                control: bool = True, target_stderr: float | None = None,
                max_paths: int = DEFAULT_MAX_PATHS, replicates: int = DEFAULT_REPLICATES,
                chunk_paths: int | None = None, source: str | None = None,
-               control_set: tuple[str, ...] | None = None, progress: bool = False
+               control_set: tuple[str, ...] | None = None, progress: bool = False,
+               threads: int | None = None, stream: tuple[int, ...] = ()
                ) -> list[PriceResult]:
     """Price several products on the same assets with the same random numbers.
 
@@ -645,7 +653,8 @@ def price_many(products: list[Product], market: Market, *, paths: int = DEFAULT_
     prices carry far less noise than independent runs.
     """
     t_start = time.perf_counter()
-    smp = make_sampler(sampler, seed=seed, antithetic=antithetic, replicates=replicates)
+    smp = make_sampler(sampler, seed=seed, antithetic=antithetic, replicates=replicates,
+                       stream_key=stream)
     if target_stderr is not None and not (math.isfinite(target_stderr) and target_stderr > 0):
         raise InputError(f"must be a positive number, got {target_stderr}", key="target_stderr")
     if target_stderr is not None and (isinstance(max_paths, bool) or not isinstance(
@@ -666,6 +675,7 @@ def price_many(products: list[Product], market: Market, *, paths: int = DEFAULT_
                              f"off ({'; '.join(sorted(dropped))})")
     sim = Simulation(products, market, smp, controls, source)
     sim.progress = progress
+    sim.threads = None if threads is None else engine_threads(threads)
     notes: list[str] = list(law_notes)
     if law_notes and sim.params is not None:
         check_law_tails(market, sim.names, sim.params.variance,
@@ -676,7 +686,7 @@ def price_many(products: list[Product], market: Market, *, paths: int = DEFAULT_
                f"the generator's limit of {SOBOL_MAX_DIM}: fell back to the pseudo-random sampler")
         warnings.warn(msg, SamplingWarning, stacklevel=3)
         notes.append(msg)
-        smp = make_sampler("pseudo", seed=smp.seed, antithetic=antithetic)
+        smp = make_sampler("pseudo", seed=smp.seed, antithetic=antithetic, stream_key=stream)
         sim.sampler = smp
     currency = market.currency
 

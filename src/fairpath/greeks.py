@@ -245,7 +245,8 @@ def likelihood_ratio(y: np.ndarray, x1: np.ndarray, spots: np.ndarray, params,
 def greeks(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
            sampler: str = "sobol", seed: int | None = None, method: str = "auto",
            antithetic: bool = False, replicates: int = DEFAULT_REPLICATES,
-           cross_gamma: bool = True, source: str | None = None) -> GreeksResult:
+           cross_gamma: bool = True, source: str | None = None,
+           stream: tuple[int, ...] = ()) -> GreeksResult:
     """Delta, gamma (and cross-gammas), vega per asset, rho and theta, each with its error.
 
     Parameters
@@ -273,7 +274,8 @@ def greeks(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
     source = source or product.source
     product.check(market, source)
     product = product.struck(market)
-    smp = make_sampler(sampler, seed=seed, antithetic=antithetic, replicates=replicates)
+    smp = make_sampler(sampler, seed=seed, antithetic=antithetic, replicates=replicates,
+                       stream_key=stream)
     names = product.underlyings()
     notes: list[str] = []
     unused = [n for n in market.asset_names if n not in names]
