@@ -20,6 +20,7 @@ from fairpath.products import (
     Basket,
     Digital,
     European,
+    Formula,
     Product,
     load_product,
 )
@@ -31,8 +32,8 @@ __version__ = "0.1.0"
 __all__ = [
     "Asian", "Asset", "Autocallable", "Barrier", "Basket", "BookSummary", "CAUTION", "Correlation",
     "Digital", "DiscountCurve", "EmpiricalLaw", "European", "FairpathError", "FairpathWarning",
-    "GreekProfile", "GreeksResult", "InputError", "Law", "Market", "NormalLaw", "PriceResult",
-    "Product", "QuoteCheck", "QuoteChecks", "REGISTRY", "SamplingWarning", "SolveResult",
-    "StudentT", "VolCurve", "check_quote", "check_quotes", "greek_profile", "greeks",
-    "load_market", "load_product", "price", "price_book", "price_many", "solve",
+    "Formula", "GreekProfile", "GreeksResult", "InputError", "Law", "Market", "NormalLaw",
+    "PriceResult", "Product", "QuoteCheck", "QuoteChecks", "REGISTRY", "SamplingWarning",
+    "SolveResult", "StudentT", "VolCurve", "check_quote", "check_quotes", "greek_profile",
+    "greeks", "load_market", "load_product", "price", "price_book", "price_many", "solve",
 ]

@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import argparse
 import json
+import os
 import sys
 import warnings
 from importlib import resources
@@ -210,6 +211,15 @@ def main(argv: list[str] | None = None) -> int:
     except KeyboardInterrupt:
         print("fairpath: interrupted", file=sys.stderr)
         return 130
+    except BrokenPipeError:  # the reader went away (e.g. `| head`): nothing more to say
+        sys.stderr.close()
+        return 0
+    except Exception as exc:  # noqa: BLE001 - one line, no traceback, for anything unforeseen
+        if os.environ.get("FAIRPATH_DEBUG"):
+            raise
+        print(f"fairpath: internal error: {type(exc).__name__}: {exc} (set FAIRPATH_DEBUG=1 "
+              "for the traceback)", file=sys.stderr)
+        return 1
     return 1  # pragma: no cover
 
 

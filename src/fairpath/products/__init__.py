@@ -5,8 +5,12 @@ from fairpath.products.autocall import Autocallable
 from fairpath.products.barrier import Barrier
 from fairpath.products.base import REGISTRY, ControlVariate, PathSet, Product, product_class
 from fairpath.products.basket import Basket
+from fairpath.products.formula import Formula
 from fairpath.products.loader import load_product, product_from_dict
 from fairpath.products.vanilla import Digital, European
 
-__all__ = ["REGISTRY", "Asian", "Autocallable", "Barrier", "Basket", "ControlVariate", "Digital",
-           "European", "PathSet", "Product", "load_product", "product_class", "product_from_dict"]
+__all__ = [
+    "Asian", "Autocallable", "Barrier", "Basket", "ControlVariate", "Digital", "European",
+    "Formula", "PathSet", "Product", "REGISTRY", "load_product", "product_class",
+    "product_from_dict",
+]
