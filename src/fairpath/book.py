@@ -13,7 +13,9 @@ disk as each trade finishes.
 * **Resumable.** Rerunning with the same output file keeps the rows already ``ok`` and prices
   the rest (errors are tried again: a fixed file gets its price). A row cut short by a crash is
   dropped and redone; the file is rewritten whole (to a temporary file, then renamed) before
-  new rows are appended, so it is never left half-written.
+  new rows are appended, so it is never left half-written. A side file ``OUT.run.json`` keeps
+  a digest of the market and settings: a rerun with others is refused rather than mixing
+  prices of two runs.
 * **Robust.** A trade whose product file is bad gets ``status = error`` with the message and
   does not stop the others; on a cluster a lost worker's trades are retried by Dask.
 * **Where.** By default a local Dask cluster of processes (one per core, one thread each) is
@@ -47,6 +49,8 @@ from fairpath.sampling import DEFAULT_REPLICATES, normalize_seed
 COLUMNS = ("trade_id", "product", "price", "stderr", "currency", "status", "message")
 #: Retries of a trade whose worker was lost (Dask reschedules it on another worker).
 RETRIES = 2
+#: How long to try reaching a running scheduler.
+SCHEDULER_TIMEOUT = "10s"
 INSTALL_HINT = ('the book runs on Dask, an optional dependency: pip install "fairpath[cluster]" '
                 '(or pip install "dask[distributed]")')
 
@@ -74,8 +78,8 @@ class BookSummary:
     rows: list[dict] = field(default_factory=list, repr=False)
 
     def __str__(self) -> str:
-        lines = [f"{self.trades} trades: {self.priced} priced now, {self.skipped} already done "
-                 f"(kept from {self.out}), {self.errors} with errors; {self.seconds:.1f} s"]
+        lines = [f"{self.trades} trades: {self.priced} done now ({self.errors} with errors), "
+                 f"{self.skipped} kept from {self.out}; {self.seconds:.1f} s"]
         for cur, total in sorted(self.totals.items()):
             lines.append(f"total value {total:,.4f} {cur}")
         return "\n".join(lines)
@@ -275,10 +279,25 @@ def price_book(trades_csv: str | Path, market: Market, out: str | Path, *,
     extra = ("greeks",) if greeks else ()
     columns = COLUMNS + extra
     ids = {t.trade_id for t in trades}
-    done = {r["trade_id"]: r for r in _read_done(out, extra) if r["trade_id"] in ids}
-    todo = [t for t in trades if t.trade_id not in done]
-    _rewrite(out, list(done.values()), columns)
     settings = dict(paths=paths, sampler=sampler, seed=seed, replicates=replicates)
+    stamp = _fingerprint(market, settings, greeks)
+    meta = out.with_name(out.name + ".run.json")
+    done = {r["trade_id"]: r for r in _read_done(out, extra) if r["trade_id"] in ids}
+    if done and meta.exists():
+        try:
+            before = json.loads(meta.read_text(encoding="utf-8")).get("inputs")
+        except (OSError, ValueError):
+            before = None
+        if before is not None and before != stamp:
+            raise InputError("holds results priced with another market or other settings "
+                             "(seed, paths, sampler, Greeks); use another --out or remove it "
+                             f"and {meta.name}", source=str(out))
+    todo = [t for t in trades if t.trade_id not in done]
+    client = cluster = None
+    if executor == "dask" and todo:
+        client, cluster = _open_client(workers, scheduler)  # before anything is written
+    _rewrite(out, list(done.values()), columns)
+    _write_meta(meta, stamp)
     rows: list[dict] = []
     appender = _Appender(out, columns)
     bar = None
@@ -304,67 +323,94 @@ def price_book(trades_csv: str | Path, market: Market, out: str | Path, *,
         ready = []
         for t in todo:
             try:
+                if not t.product:
+                    raise InputError("product: empty", source=f"{trades_csv} line {t.line}")
                 ready.append((t, load_product(t.path)))
             except (InputError, FairpathError) as exc:
                 record({"trade_id": t.trade_id, "price": "", "stderr": "",
                         "currency": market.currency, "status": "error",
                         "message": str(exc)}, t)
-        if executor == "serial" or not ready:
+        if client is None:
             for t, prod in ready:
                 record(price_trade(t.trade_id, prod, market, t.quantity, settings, greeks), t)
-        else:
-            _run_dask(ready, market, settings, greeks, workers, scheduler, record)
+        elif ready:
+            _run_dask(client, ready, market, settings, greeks, record)
     finally:
         appender.close()
         if bar is not None:
             bar.close()
+        if client is not None:
+            client.close()
+        if cluster is not None:
+            cluster.close()
     every = list(done.values()) + rows
-    totals: dict[str, float] = {}
-    for r in every:
+    order = {t.trade_id: i for i, t in enumerate(trades)}
+    totals: dict[str, list[float]] = {}
+    for r in sorted(every, key=lambda r: order.get(r["trade_id"], -1)):
         if r.get("status") == "ok":
-            totals[r["currency"]] = totals.get(r["currency"], 0.0) + float(r["price"])
+            totals.setdefault(r["currency"], []).append(float(r["price"]))
     return BookSummary(len(trades), len(rows), len(done),
-                       sum(r.get("status") == "error" for r in rows), totals,
+                       sum(r.get("status") == "error" for r in rows),
+                       {k: math.fsum(v) for k, v in totals.items()},
                        time.perf_counter() - t0, str(out), every)
 
 
-def _run_dask(ready, market, settings, greeks, workers, scheduler, record) -> None:
+def _open_client(workers, scheduler):
+    """A Dask client: on a new local cluster of processes, or on a running scheduler."""
     try:
-        from dask.distributed import Client, LocalCluster, as_completed
+        from dask.distributed import Client, LocalCluster
     except ImportError:
         raise InputError(INSTALL_HINT, key="book") from None
-    cluster = None
     if scheduler is None:
         n = workers or os.cpu_count() or 1
         cluster = LocalCluster(n_workers=n, threads_per_worker=1, processes=True,
                                dashboard_address=None, silence_logs=40)
-        client = Client(cluster)
-    else:
-        try:
-            client = Client(scheduler, timeout="10s")
-        except (OSError, TimeoutError, ValueError) as exc:
-            raise InputError(f"cannot reach the Dask scheduler: {exc}", key="--scheduler") \
-                from None
+        return Client(cluster), cluster
     try:
-        # one fairpath thread per task: the cluster's workers share the cores
-        one = {**settings, "threads": 1}
-        m = client.scatter(market, broadcast=True)
-        futures = {}
-        for t, prod in ready:
-            f = client.submit(price_trade, t.trade_id, prod, m, t.quantity, one, greeks,
-                              key=f"fairpath-{t.trade_id}-{trade_stream(t.trade_id)[0]}",
-                              retries=RETRIES, pure=False)
-            futures[f] = t
-        for f in as_completed(futures):
-            t = futures[f]
-            try:
-                row = f.result()
-            except Exception as exc:  # noqa: BLE001 - a task that failed for good
-                row = {"trade_id": t.trade_id, "price": "", "stderr": "",
-                       "currency": market.currency, "status": "error",
-                       "message": f"failed on the cluster: {type(exc).__name__}: {exc}"}
-            record(row, t)
-    finally:
-        client.close()
-        if cluster is not None:
-            cluster.close()
+        return Client(scheduler, timeout=SCHEDULER_TIMEOUT), None
+    except (OSError, TimeoutError, ValueError) as exc:
+        raise InputError(f"cannot reach the Dask scheduler: {exc}", key="--scheduler") \
+            from None
+
+
+def _run_dask(client, ready, market, settings, greeks, record) -> None:
+    from dask.distributed import as_completed
+
+    # one fairpath thread per task: the cluster's workers share the cores
+    one = {**settings, "threads": 1}
+    m = client.scatter(market, broadcast=True)
+    futures = {}
+    for t, prod in ready:
+        # Dask names each task uniquely (pure=False): two books on one cluster never share
+        # results, whatever their trade ids
+        f = client.submit(price_trade, t.trade_id, prod, m, t.quantity, one, greeks,
+                          retries=RETRIES, pure=False)
+        futures[f] = t
+    for f in as_completed(futures):
+        t = futures[f]
+        try:
+            row = f.result()
+        except Exception as exc:  # noqa: BLE001 - a task that failed for good
+            row = {"trade_id": t.trade_id, "price": "", "stderr": "",
+                   "currency": market.currency, "status": "error",
+                   "message": f"failed on the cluster: {type(exc).__name__}: {exc}"}
+        record(row, t)
+
+
+def _fingerprint(market: Market, settings: dict, greeks: bool) -> str:
+    """A digest of what a book's rows depend on besides the trades (market, settings)."""
+    text = repr((market, sorted(settings.items()), greeks))
+    return hashlib.sha256(text.encode("utf-8")).hexdigest()
+
+
+def _write_meta(meta: Path, stamp: str) -> None:
+    fd, tmp = tempfile.mkstemp(dir=meta.parent, prefix=f".{meta.name}.", suffix=".tmp")
+    try:
+        with os.fdopen(fd, "w", encoding="utf-8") as fh:
+            json.dump({"inputs": stamp, "note": "fairpath book: the inputs these results were "
+                       "priced with (a rerun with other inputs is refused)"}, fh)
+        os.replace(tmp, meta)
+    except BaseException:
+        if os.path.exists(tmp):
+            os.unlink(tmp)
+        raise
