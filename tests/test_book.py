@@ -647,9 +647,6 @@ def test_scheduler_address_malformed(tmp_path, capsys):
     assert_bad_input(code, stdout, err, "--scheduler", "not-an-address")
 
 
-@pytest.mark.xfail(strict=True, reason="an unreachable scheduler is found only after the output "
-                   "file has been created (header and any load-error rows): bad input leaves a "
-                   "file behind")
 def test_scheduler_unreachable_leaves_no_output(tmp_path, capsys):
     book = write_book(tmp_path, FAST[:1])
     out = tmp_path / "out.csv"
@@ -676,10 +673,6 @@ def test_without_dask_says_how_to_install(market, tmp_path, monkeypatch, capsys)
 # ---------------------------------------------------------------------------------------------
 # A shared cluster: two books priced at once
 # ---------------------------------------------------------------------------------------------
-@pytest.mark.xfail(strict=True, reason="task keys are fairpath-<trade_id>-<hash of the id> only: "
-                   "two runs on one cluster at the same time (e.g. two seeds or two market "
-                   "scenarios of the same book) share keys, and the second run silently gets the "
-                   "first run's prices")
 def test_two_runs_at_once_on_one_cluster_keep_their_own_numbers(cluster, market, tmp_path):
     book = write_book(tmp_path, FAST)
     ref = {}
