@@ -14,9 +14,14 @@ from dataclasses import dataclass
 from datetime import date, timedelta
 
 from fairpath.errors import InputError
+from fairpath.inputs import did_you_mean, show
 
 DAY_COUNTS = ("ACT/365F", "ACT/360")
 _TENOR = re.compile(r"^\s*(\d+)\s*([DWMY])\s*$", re.IGNORECASE)
+#: Most dates a ``{first, every, count}`` schedule may generate (a weekly schedule over a
+#: century is about 5,200; far more is a typo, and would only fill memory).
+MAX_SCHEDULE_COUNT = 100_000
+SCHEDULE_KEYS = ("first", "every", "count", "dates")
 
 
 @dataclass(frozen=True, slots=True)
@@ -30,14 +35,20 @@ class Tenor:
         return f"{self.count}{self.unit}"
 
     def add_to(self, d: date, times: int = 1) -> date:
-        """Return ``d`` moved forward by ``times`` of this tenor (no weekend roll)."""
+        """Return ``d`` moved forward by ``times`` of this tenor (no weekend roll).
+
+        A date past the end of the calendar (year 9999) is an :class:`InputError`."""
         n = self.count * times
-        if self.unit == "D":
-            return d + timedelta(days=n)
-        if self.unit == "W":
-            return d + timedelta(weeks=n)
-        months = n if self.unit == "M" else 12 * n
-        return add_months(d, months)
+        try:
+            if self.unit == "D":
+                return d + timedelta(days=n)
+            if self.unit == "W":
+                return d + timedelta(weeks=n)
+            months = n if self.unit == "M" else 12 * n
+            return add_months(d, months)
+        except (OverflowError, ValueError):
+            raise InputError(f"{d} + {n}{self.unit} is past the end of the calendar (year 9999)"
+                             ) from None
 
 
 def add_months(d: date, months: int) -> date:
@@ -57,18 +68,23 @@ def parse_tenor(text: object, *, source: str | None = None, key: str | None = No
     Tenor(count=6, unit='M')
     """
     if not isinstance(text, str):
-        raise InputError(f"a tenor must be a string like \"6M\", got {text!r}", source=source,
-                         key=key)
-    m = _TENOR.match(text)
-    if not m or int(m.group(1)) <= 0:
-        raise InputError(f"not a tenor: {text!r} (expected e.g. \"1D\", \"2W\", \"3M\", \"1Y\")",
+        raise InputError(f"a tenor must be a string like \"6M\", got {show(text)}",
                          source=source, key=key)
+    m = _TENOR.match(text)
+    if m and len(m.group(1).lstrip("0")) > 6:
+        raise InputError(f"tenor {show(text)} is longer than any calendar (at most 999999 "
+                         "units)", source=source, key=key)
+    if not m or int(m.group(1)) <= 0:
+        raise InputError(f"not a tenor: {show(text)} (expected e.g. \"1D\", \"2W\", \"3M\", "
+                         "\"1Y\")", source=source, key=key)
     return Tenor(int(m.group(1)), m.group(2).upper())
 
 
 def roll_weekend(d: date) -> date:
-    """Saturday and Sunday roll to the following Monday."""
+    """Saturday and Sunday roll to the following Monday (an InputError past year 9999)."""
     wd = d.weekday()
+    if wd >= 5 and d > date.max - timedelta(days=2):
+        raise InputError(f"{d} would roll to a Monday past the end of the calendar (year 9999)")
     if wd == 5:
         return d + timedelta(days=2)
     if wd == 6:
@@ -91,8 +107,8 @@ def schedule_dates(spec: object, *, source: str | None = None, key: str | None =
     if isinstance(spec, list | tuple):
         spec = {"dates": list(spec)}
     if not isinstance(spec, dict):
-        raise InputError("a schedule must be a table {first, every, count} or {dates = [...]}",
-                         source=source, key=key)
+        raise InputError("a schedule must be a table {first, every, count} or {dates = [...]}, "
+                         f"got {show(spec)}", source=source, key=key)
     keys = set(spec)
     if "dates" in keys:
         extra = keys - {"dates"}
@@ -101,7 +117,8 @@ def schedule_dates(spec: object, *, source: str | None = None, key: str | None =
                              source=source, key=key)
         raw = spec["dates"]
         if not isinstance(raw, list) or not raw:
-            raise InputError("'dates' must be a non-empty list of dates", source=source, key=key)
+            raise InputError(f"'dates' must be a non-empty list of dates, got {show(raw)}",
+                             source=source, key=key)
         out = []
         for i, d in enumerate(raw):
             out.append(as_date(d, source=source, key=f"{key}.dates[{i}]" if key else None))
@@ -112,20 +129,30 @@ def schedule_dates(spec: object, *, source: str | None = None, key: str | None =
         return tuple(out)
     required = {"first", "every", "count"}
     missing = required - keys
+    extra = sorted(str(k) for k in keys - required)
+    hint = "".join(f"; unknown {k!r}{did_you_mean(k, SCHEDULE_KEYS)}" for k in extra)
     if missing:
         raise InputError(f"a schedule needs {sorted(required)} or 'dates'; missing "
-                         f"{sorted(missing)}", source=source, key=key)
-    extra = keys - required
+                         f"{sorted(missing)}{hint}", source=source, key=key)
     if extra:
-        raise InputError(f"unknown schedule key(s) {sorted(extra)}; known: first, every, count, "
+        raise InputError(f"unknown schedule key(s) {extra}"
+                         f"{did_you_mean(extra[0], SCHEDULE_KEYS)}; known: first, every, count, "
                          "dates", source=source, key=key)
     first = as_date(spec["first"], source=source, key=f"{key}.first" if key else "first")
     every = parse_tenor(spec["every"], source=source, key=f"{key}.every" if key else "every")
     count = spec["count"]
+    count_key = f"{key}.count" if key else "count"
     if isinstance(count, bool) or not isinstance(count, int) or count < 1:
-        raise InputError(f"count must be a positive integer, got {count!r}", source=source,
-                         key=f"{key}.count" if key else "count")
-    out = [roll_weekend(every.add_to(first, i)) for i in range(count)]
+        raise InputError(f"count must be a positive integer, got {show(count)}", source=source,
+                         key=count_key)
+    if count > MAX_SCHEDULE_COUNT:
+        raise InputError(f"count {count if count < 10**12 else show(count)} is more dates than "
+                         f"any trade needs (at most {MAX_SCHEDULE_COUNT:,})", source=source,
+                         key=count_key)
+    try:
+        out = [roll_weekend(every.add_to(first, i)) for i in range(count)]
+    except InputError as exc:  # a date past year 9999
+        raise InputError(exc.problem, source=source, key=key) from None
     for a, b in zip(out, out[1:], strict=False):
         if b <= a:  # only possible with a 1D step across a weekend
             raise InputError(f"the schedule generates {b} twice after the weekend roll; use a "
@@ -142,7 +169,8 @@ def as_date(value: object, *, source: str | None = None, key: str | None = None)
             return date.fromisoformat(value.strip())
         except ValueError:
             pass
-    raise InputError(f"expected a date like 2027-12-01, got {value!r}", source=source, key=key)
+    raise InputError(f"expected a date like 2027-12-01, got {show(value)}", source=source,
+                     key=key)
 
 
 def year_fraction(start: date, end: date, day_count: str = "ACT/365F") -> float:

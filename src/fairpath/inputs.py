@@ -6,21 +6,25 @@ import difflib
 import math
 import tomllib
 from collections.abc import Iterable
-from datetime import date
+from datetime import date, datetime, time
 from pathlib import Path
 from typing import Any
 
-from fairpath.dates import as_date
 from fairpath.errors import InputError
 
 _MISSING = object()
+#: Longest rendering of a value inside an error message (the rest is cut to "...").
+SHOW_LIMIT = 60
+#: Largest size of an amount (quantity, notional, payout, rebate) or a price level (spot,
+#: strike, fixing) in a file: beyond it products of two of them approach float overflow.
+MAX_AMOUNT = 1e15
 
 
 def read_toml(path: str | Path) -> dict[str, Any]:
     """Load a TOML file; a missing file or a syntax error becomes an :class:`InputError`."""
     p = Path(path)
     try:
-        text = p.read_bytes().decode("utf-8")
+        text = p.read_bytes().decode("utf-8-sig")  # a byte-order mark (Windows editors) is fine
     except FileNotFoundError:
         raise InputError("file not found", source=str(path)) from None
     except IsADirectoryError:
@@ -32,8 +36,14 @@ def read_toml(path: str | Path) -> dict[str, Any]:
         raise InputError(f"cannot read: {exc.strerror}", source=str(path)) from None
     try:
         return tomllib.loads(text)
-    except tomllib.TOMLDecodeError as exc:
-        raise InputError(f"not valid TOML: {exc}", source=str(path)) from None
+    except tomllib.TOMLDecodeError as exc:  # the message ends "(at line L, column C)"
+        raise InputError(f"not valid TOML: {one_line(str(exc))}", source=str(path)) from None
+    except RecursionError:
+        raise InputError("not valid TOML: arrays or tables nested too deeply",
+                         source=str(path)) from None
+    except ValueError:  # tomllib's int() of more digits than Python converts (4300)
+        raise InputError("not valid TOML: an integer has too many digits to read",
+                         source=str(path)) from None
 
 
 class Table:
@@ -54,6 +64,7 @@ class Table:
 
     # -- helpers -------------------------------------------------------------------------
     def key(self, name: str) -> str:
+        name = key_label(name)
         return f"{self.prefix}.{name}" if self.prefix else name
 
     def error(self, name: str | None, message: str) -> InputError:
@@ -69,7 +80,11 @@ class Table:
         if name in self.data:
             return self.data[name]
         if default is _MISSING:
-            raise self.error(name, "missing required key")
+            # a misspelt key is better reported as what it is than as a missing one
+            unread = [k for k in self.data if k not in self._known and isinstance(k, str)]
+            close = difflib.get_close_matches(name, unread, n=1, cutoff=0.6)
+            hint = f" (found {show(close[0])}: a typo?)" if close else ""
+            raise self.error(name, f"missing required key{hint}")
         return default
 
     def table(self, name: str, default: Any = _MISSING) -> Table | None:
@@ -81,32 +96,41 @@ class Table:
         return Table(value, self.source, self.key(name))
 
     def number(self, name: str, default: Any = _MISSING, *, positive: bool = False,
-               nonnegative: bool = False, finite: bool = True) -> float:
+               nonnegative: bool = False, finite: bool = True,
+               limit: float | None = None) -> float:
         value = self.raw(name, default)
         if value is None:
             return None  # type: ignore[return-value]
         return self.check_number(name, value, positive=positive, nonnegative=nonnegative,
-                                 finite=finite)
+                                 finite=finite, limit=limit)
 
     def check_number(self, name: str, value: Any, *, positive: bool = False,
-                     nonnegative: bool = False, finite: bool = True) -> float:
+                     nonnegative: bool = False, finite: bool = True,
+                     limit: float | None = None) -> float:
+        """``value`` as a float; ``limit`` bounds its size (amounts and price levels)."""
         if isinstance(value, bool) or not isinstance(value, int | float):
-            raise self.error(name, f"expected a number, got {_kind(value)} {value!r}")
-        value = float(value)
+            raise self.error(name, f"expected a number, got {_kind(value)} {show(value)}")
+        try:
+            value = float(value)
+        except OverflowError:  # a TOML integer beyond the range of a float
+            raise self.error(name, f"must be a finite number, got {show(value)}") from None
         if finite and not math.isfinite(value):
             raise self.error(name, f"must be a finite number, got {value}")
         if positive and not value > 0:
             raise self.error(name, f"must be positive, got {value:g}")
         if nonnegative and not value >= 0:
             raise self.error(name, f"must not be negative, got {value:g}")
+        if limit is not None and abs(value) > limit:
+            raise self.error(name, f"{value:g} is beyond {limit:g} in size, larger than any "
+                             "amount or level this tool prices")
         return value
 
     def integer(self, name: str, default: Any = _MISSING, *, minimum: int | None = None) -> int:
         value = self.raw(name, default)
         if isinstance(value, bool) or not isinstance(value, int):
-            raise self.error(name, f"expected an integer, got {_kind(value)} {value!r}")
+            raise self.error(name, f"expected an integer, got {_kind(value)} {show(value)}")
         if minimum is not None and value < minimum:
-            raise self.error(name, f"must be at least {minimum}, got {value}")
+            raise self.error(name, f"must be at least {minimum}, got {show(value)}")
         return value
 
     def string(self, name: str, default: Any = _MISSING, *,
@@ -115,24 +139,26 @@ class Table:
         if value is None:
             return None  # type: ignore[return-value]
         if not isinstance(value, str):
-            raise self.error(name, f"expected a string, got {_kind(value)} {value!r}")
+            raise self.error(name, f"expected a string, got {_kind(value)} {show(value)}")
         if choices is not None:
             choices = list(choices)
             if value not in choices:
-                raise self.error(name, f"unknown value {value!r}; expected one of "
+                raise self.error(name, f"unknown value {show(value)}; expected one of "
                                  f"{', '.join(choices)}{did_you_mean(value, choices)}")
         return value
 
     def boolean(self, name: str, default: Any = _MISSING) -> bool:
         value = self.raw(name, default)
         if not isinstance(value, bool):
-            raise self.error(name, f"expected true or false, got {value!r}")
+            raise self.error(name, f"expected true or false, got {_kind(value)} {show(value)}")
         return value
 
     def date(self, name: str, default: Any = _MISSING) -> date:
         value = self.raw(name, default)
         if value is None:
             return None  # type: ignore[return-value]
+        from fairpath.dates import as_date  # dates imports this module
+
         return as_date(value, source=self.source, key=self.key(name))
 
     def list(self, name: str, default: Any = _MISSING, *, nonempty: bool = True) -> list:
@@ -160,6 +186,34 @@ def did_you_mean(word: str, choices: Iterable[str]) -> str:
     return f" (did you mean {close[0]!r}?)" if close else ""
 
 
+def one_line(text: str) -> str:
+    """``text`` with every line break (``str.splitlines`` sense) turned into a space."""
+    return " ".join(text.splitlines())
+
+
+def key_label(name: object) -> str:
+    """A key as it appears in messages: as written when it is printable without blanks, quoted
+    (``'X Y'``) otherwise, so a key holding a line break cannot garble the message."""
+    name = str(name)
+    if name and name.isprintable() and not any(c.isspace() or c in "'\"" for c in name):
+        return name
+    return show(name)
+
+
+def show(value: Any, limit: int = SHOW_LIMIT) -> str:
+    """A value for an error message: its ``repr`` on one line, cut to ``limit`` characters;
+    an integer too long to print in full is described by its number of digits."""
+    if isinstance(value, int) and not isinstance(value, bool) and value.bit_length() > 100:
+        digits = int(value.bit_length() * math.log10(2)) + 1
+        return f"{'-' if value < 0 else ''}an integer of about {digits} digits"
+    try:
+        text = one_line(repr(value))
+    except (ValueError, RecursionError):  # pragma: no cover - a huge int deep in a table
+        text = f"<{type(value).__name__}>"
+    return text if len(text) <= limit else text[: limit - 3] + "..."
+
+
 def _kind(value: Any) -> str:
     return {dict: "a table", list: "a list", str: "a string", bool: "a boolean",
-            int: "an integer", float: "a number"}.get(type(value), type(value).__name__)
+            int: "an integer", float: "a number", date: "a date", datetime: "a date-time",
+            time: "a time"}.get(type(value), type(value).__name__)

@@ -22,11 +22,24 @@ import numpy as np
 
 from fairpath.dates import DAY_COUNTS, parse_tenor, year_fraction
 from fairpath.errors import InputError
-from fairpath.inputs import Table, did_you_mean, read_toml
+from fairpath.inputs import MAX_AMOUNT, Table, did_you_mean, read_toml, show
 from fairpath.laws import NORMAL, Law, parse_law
 
 #: Tolerance on the smallest eigenvalue of a correlation matrix (rounding in hand-typed files).
 PSD_TOLERANCE = 1e-10
+#: Largest vol a market file may give (500%): a larger one is a percentage typed as a number.
+MAX_VOL = 5.0
+#: Largest absolute rate or dividend yield a market file may give (100%, continuously
+#: compounded): a larger one is a percentage typed as a number.
+MAX_RATE = 1.0
+#: Keys of the format notes that this version does not implement (refused with a clear word
+#: rather than as unknown).
+NOT_SUPPORTED = {
+    "vol_surface": "an implied-volatility surface (local volatility) is not supported by this "
+                   "version; give 'vol' or 'vol_tenors' + 'vols'",
+    "dividends": "discrete cash dividends are not supported by this version; give a continuous "
+                 "'dividend_yield'",
+}
 
 
 # ---------------------------------------------------------------------------------------------
@@ -170,10 +183,14 @@ class Asset:
 
     def __post_init__(self):
         if not (np.isfinite(self.spot) and self.spot > 0):
-            raise InputError(f"spot must be positive, got {self.spot}", key=f"assets.{self.name}")
+            raise InputError(f"spot must be positive, got {self.spot}",
+                             key=f"assets.{self.name}.spot")
         if any(not (np.isfinite(v) and v >= 0) for v in self.vol.vols):
             raise InputError(f"vol must not be negative, got {self.vol.vols}",
-                             key=f"assets.{self.name}")
+                             key=f"assets.{self.name}.vol")
+        if not np.isfinite(self.dividend_yield):
+            raise InputError(f"dividend_yield must be a finite number, got {self.dividend_yield}",
+                             key=f"assets.{self.name}.dividend_yield")
 
 
 @dataclass(frozen=True, slots=True)
@@ -243,13 +260,16 @@ class Market:
         if len(set(names)) != len(names):
             raise InputError(f"an asset appears twice in {list(names)}", source=source, key=key)
         if self.correlation is None:
-            raise InputError(f"assets {', '.join(names)} need a [correlation] block in the market",
-                             source=source, key=key)
+            where = f" ({self.source})" if self.source else ""
+            raise InputError(f"assets {', '.join(names)} need a [correlation] block in the "
+                             f"market{where}", source=source, key=key)
         idx = []
         for n in names:
             if n not in self.correlation.assets:
-                raise InputError(f"asset {n!r} is missing from the market's correlation block "
-                                 f"({', '.join(self.correlation.assets)})", source=source, key=key)
+                where = f" in {self.source}" if self.source else ""
+                raise InputError(f"asset {n!r} is missing from the market's correlation block"
+                                 f"{where} ({', '.join(self.correlation.assets)})",
+                                 source=source, key=key)
             idx.append(self.correlation.assets.index(n))
         return self.correlation.array()[np.ix_(idx, idx)]
 
@@ -295,7 +315,10 @@ def load_market(path: str | Path) -> Market:
         out = []
         for i, t in enumerate(tenors):
             ten = parse_tenor(t, source=src, key=tab.key(f"{key}[{i}]"))
-            out.append(year_fraction(valuation, ten.add_to(valuation), day_count))
+            try:
+                out.append(year_fraction(valuation, ten.add_to(valuation), day_count))
+            except InputError as exc:
+                raise tab.error(f"{key}[{i}]", exc.problem) from None
         if any(b <= a for a, b in zip(out, out[1:], strict=False)):
             raise tab.error(key, "tenors must be strictly increasing")
         return out
@@ -304,7 +327,7 @@ def load_market(path: str | Path) -> Market:
     if disc.has("rate"):
         if disc.has("tenors") or disc.has("zero_rates"):
             raise disc.error("rate", "give either 'rate' or 'tenors' + 'zero_rates', not both")
-        curve = DiscountCurve.flat(disc.number("rate"))
+        curve = DiscountCurve.flat(_rate(disc, "rate", disc.raw("rate")))
     else:
         if not disc.has("tenors"):
             raise disc.error("rate", "missing: give 'rate' or 'tenors' + 'zero_rates'")
@@ -312,7 +335,7 @@ def load_market(path: str | Path) -> Market:
         rates = disc.list("zero_rates")
         if len(rates) != len(times):
             raise disc.error("zero_rates", f"has {len(rates)} values for {len(times)} tenors")
-        rates = [disc.check_number(f"zero_rates[{i}]", r) for i, r in enumerate(rates)]
+        rates = [_rate(disc, f"zero_rates[{i}]", r) for i, r in enumerate(rates)]
         curve = DiscountCurve(tuple(times), tuple(rates))
     disc.finish()
 
@@ -321,18 +344,24 @@ def load_market(path: str | Path) -> Market:
         raise assets_tab.error(None, "the market has no assets")
     assets = []
     for name in list(assets_tab.data):
+        if not name.strip() or not name.isprintable() or name != name.strip():
+            raise assets_tab.error(None, f"asset name {show(name)} must be printable, not "
+                                   "blank, without leading or trailing spaces")
         a = assets_tab.table(name)
-        spot = a.number("spot", positive=True)
+        for k, why in NOT_SUPPORTED.items():
+            if k in a.data:
+                raise a.error(k, why)
+        spot = a.number("spot", positive=True, limit=MAX_AMOUNT)
         if a.has("vol"):
             if a.has("vol_tenors") or a.has("vols"):
                 raise a.error("vol", "give either 'vol' or 'vol_tenors' + 'vols', not both")
-            vol = VolCurve.flat(a.number("vol", nonnegative=True))
+            vol = VolCurve.flat(_vol(a, "vol", a.raw("vol")))
         elif a.has("vol_tenors"):
             times = tenor_times(a, "vol_tenors")
             vols = a.list("vols")
             if len(vols) != len(times):
                 raise a.error("vols", f"has {len(vols)} values for {len(times)} tenors")
-            vols = [a.check_number(f"vols[{i}]", v, nonnegative=True) for i, v in enumerate(vols)]
+            vols = [_vol(a, f"vols[{i}]", v) for i, v in enumerate(vols)]
             w = [v * v * t for v, t in zip(vols, times, strict=True)]
             for i in range(1, len(w)):
                 if w[i] < w[i - 1] - 1e-14:
@@ -341,7 +370,7 @@ def load_market(path: str | Path) -> Market:
             vol = VolCurve(tuple(times), tuple(vols))
         else:
             raise a.error("vol", "missing required key (or 'vol_tenors' + 'vols')")
-        q = a.number("dividend_yield", 0.0)
+        q = _rate(a, "dividend_yield", a.raw("dividend_yield", 0.0))
         law = NORMAL
         if a.has("law"):
             law = parse_law(a.raw("law"), base_dir=Path(src).parent, source=src,
@@ -363,8 +392,13 @@ def load_market(path: str | Path) -> Market:
             raise ctab.error("assets", "an asset is listed twice")
         rows = ctab.list("matrix")
         k = len(names)
-        if len(rows) != k or any(not isinstance(r, list) or len(r) != k for r in rows):
-            raise ctab.error("matrix", f"must be {k} x {k} to match 'assets'")
+        for i, r in enumerate(rows):
+            if not isinstance(r, list):
+                raise ctab.error(f"matrix[{i}]", f"expected a row (a list of numbers), got "
+                                 f"{show(r)}")
+        if len(rows) != k or any(len(r) != k for r in rows):
+            shape = f"{len(rows)} rows of {', '.join(sorted({str(len(r)) for r in rows}))}"
+            raise ctab.error("matrix", f"must be {k} x {k} to match 'assets', got {shape}")
         mat = np.array([[ctab.check_number(f"matrix[{i}][{j}]", v) for j, v in enumerate(r)]
                         for i, r in enumerate(rows)])
         validate_correlation(mat, source=src, key="correlation.matrix")
@@ -373,6 +407,24 @@ def load_market(path: str | Path) -> Market:
     top.finish()
     return Market(valuation_date=valuation, currency=currency, discount=curve,
                   assets=tuple(assets), day_count=day_count, correlation=corr, source=src)
+
+
+def _rate(tab: Table, name: str, value) -> float:
+    """A rate or a yield: a finite number, at most MAX_RATE in size (else a percentage)."""
+    v = tab.check_number(name, value)
+    if abs(v) > MAX_RATE:
+        raise tab.error(name, f"{v:g} is {v:.0%} continuously compounded; a percentage? write "
+                        f"{v / 100:g} for {v:g}%")
+    return v
+
+
+def _vol(tab: Table, name: str, value) -> float:
+    """A Black vol: finite, not negative, at most MAX_VOL (else a percentage)."""
+    v = tab.check_number(name, value, nonnegative=True)
+    if v > MAX_VOL:
+        raise tab.error(name, f"{v:g} is a vol of {v:.0%}; a percentage? write {v / 100:g} for "
+                        f"{v:g}%")
+    return v
 
 
 def validate_correlation(mat: np.ndarray, *, source: str | None = None,

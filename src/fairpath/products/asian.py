@@ -34,9 +34,17 @@ import numpy as np
 from fairpath import closed_form as cf
 from fairpath.dates import schedule_dates
 from fairpath.errors import InputError
+from fairpath.inputs import MAX_AMOUNT, did_you_mean, show
 from fairpath.kernels import average_option_given_shape
 from fairpath.market import Market
-from fairpath.products.base import ControlVariate, PathSet, Product, pathwise_from_gradient
+from fairpath.products.base import (
+    ControlVariate,
+    PathSet,
+    Product,
+    check_horizon,
+    pathwise_from_gradient,
+    single_asset_quantity,
+)
 from fairpath.products.vanilla import RIGHTS
 
 AVERAGES = ("arithmetic", "geometric")
@@ -100,8 +108,12 @@ class Asian(Product):
     @classmethod
     def from_table(cls, tab) -> dict:
         strike = tab.raw("strike")
-        if not isinstance(strike, str):
-            strike = tab.number("strike", nonnegative=True)
+        if isinstance(strike, str):
+            if strike != "floating":
+                raise tab.error("strike", f"expected a number or \"floating\", got {show(strike)}"
+                                f"{did_you_mean(strike, ['floating'])}")
+        else:
+            strike = tab.number("strike", nonnegative=True, limit=MAX_AMOUNT)
         past = tab.list("past_fixings", [], nonempty=False)
         return dict(
             asset=tab.string("asset"),
@@ -110,9 +122,10 @@ class Asian(Product):
             strike=strike,
             fixings=schedule_dates(tab.raw("fixings"), source=tab.source, key="fixings"),
             expiry=tab.date("expiry"),
-            past_fixings=tuple(tab.check_number(f"past_fixings[{i}]", x, positive=True)
+            past_fixings=tuple(tab.check_number(f"past_fixings[{i}]", x, positive=True,
+                                                   limit=MAX_AMOUNT)
                                for i, x in enumerate(past)),
-            quantity=tab.number("quantity", 1.0),
+            quantity=single_asset_quantity(tab),
             name=tab.string("name", None),
         )
 
@@ -143,6 +156,7 @@ class Asian(Product):
         if self.expiry < val:
             raise InputError(f"{self.expiry} is before the valuation date {val}", source=source,
                              key="expiry")
+        check_horizon(market, (*self.fixings, self.expiry), source=source, key="expiry")
         before = sum(d < val for d in self.fixings)
         through = sum(d <= val for d in self.fixings)
         if not before <= len(self.past_fixings) <= through:

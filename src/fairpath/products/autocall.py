@@ -39,14 +39,24 @@ import numpy as np
 
 from fairpath.dates import schedule_dates
 from fairpath.errors import FairpathWarning, InputError
+from fairpath.inputs import MAX_AMOUNT, did_you_mean, show
 from fairpath.laws import BRIDGE_UNDER_LAW
 from fairpath.market import Market
-from fairpath.products.base import PathSet, Product, asset_list, read_asset_names
+from fairpath.products.base import (
+    PathSet,
+    Product,
+    asset_list,
+    check_horizon,
+    read_asset_names,
+)
 
 #: Levels between this and 1000 are refused as not fractions of the initial level (a
 #: percentage typed as 70); a huge level (1e6) is the way to write "never" or "always".
 MAX_LEVEL = 5.0
 MONITORINGS = ("final", "daily", "continuous")
+#: Largest ``coupon`` a product file may give (100% of the notional per observation): a larger
+#: one is a percentage typed as a number (4 for 4%).
+MAX_COUPON = 1.0
 
 
 @dataclass(frozen=True, slots=True)
@@ -167,15 +177,31 @@ class Autocallable(Product):
         init = tab.table("initial_levels", None)
         levels = ()
         if init is not None:
-            levels = tuple((k, init.number(k, positive=True)) for k in list(init.data))
+            for k in init.data:
+                if k not in assets:
+                    raise init.error(k, f"{show(k)} is not one of the note's assets "
+                                     f"{list(assets)}{did_you_mean(k, assets)}")
+            levels = tuple((k, init.number(k, positive=True, limit=MAX_AMOUNT))
+                           for k in list(init.data))
+        coupon = tab.number("coupon", nonnegative=True)
+        observations = schedule_dates(tab.raw("observations"), source=tab.source,
+                                      key="observations")
+        owed = tab.integer("coupons_owed", 0, minimum=0)
+        if owed >= len(observations):
+            raise tab.error("coupons_owed", f"{show(owed)} coupons owed on a note of "
+                            f"{len(observations)} observation(s): at most "
+                            f"{len(observations) - 1} can be past (the last is maturity)")
+        if coupon > MAX_COUPON:
+            raise tab.error("coupon", f"{coupon:g} is {coupon:.0%} of the notional per "
+                            f"observation; a percentage? write {coupon / 100:g} for {coupon:g}%")
         return dict(
             assets=tuple(assets),
-            observations=schedule_dates(tab.raw("observations"), source=tab.source,
-                                        key="observations"),
-            notional=tab.number("notional", 1.0),
+            observations=observations,
+            notional=tab.number("notional", 1.0, limit=MAX_AMOUNT)
+            * tab.number("quantity", 1.0, limit=MAX_AMOUNT),
             autocall_level=tab.number("autocall_level", positive=True),
             autocall_step=tab.number("autocall_step", 0.0),
-            coupon=tab.number("coupon", nonnegative=True),
+            coupon=coupon,
             coupon_barrier=tab.number("coupon_barrier", nonnegative=True),
             memory=tab.boolean("memory", False),
             protection_barrier=tab.number("protection_barrier", nonnegative=True),
@@ -183,7 +209,7 @@ class Autocallable(Product):
                                              choices=MONITORINGS),
             strike_level=tab.number("strike_level", 1.0, positive=True),
             initial_levels=levels,
-            coupons_owed=tab.integer("coupons_owed", 0, minimum=0),
+            coupons_owed=owed,
             knocked_in=tab.boolean("knocked_in", False),
             name=tab.string("name", None),
         )
@@ -234,6 +260,7 @@ class Autocallable(Product):
             market.asset(a, source=source, key="assets")
         market.correlation_matrix(self.assets, source=source, key="assets")
         val = market.valuation_date
+        check_horizon(market, self.observations, source=source, key="observations")
         past = [d for d in self.observations if d <= val]
         if len(past) == len(self.observations):
             raise InputError(f"every observation is on or before the valuation date {val}: the "

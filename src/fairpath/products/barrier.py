@@ -36,13 +36,15 @@ from scipy.stats import invgauss
 from fairpath import closed_form as cf
 from fairpath.dates import schedule_dates, weekdays_between
 from fairpath.errors import InputError
+from fairpath.inputs import MAX_AMOUNT, show
 from fairpath.laws import BRIDGE_UNDER_LAW
 from fairpath.market import Market
-from fairpath.products.base import ControlVariate, PathSet
+from fairpath.products.base import ControlVariate, PathSet, check_horizon
 from fairpath.products.vanilla import OneAssetAtExpiry, _bsm_args
 
 DIRECTIONS = ("down", "up")
 EFFECTS = ("out", "in")
+MONITORINGS = ("continuous", "daily")
 #: Gauss-Legendre nodes on (0, 1) for the expected discount factor at the hitting time.
 _GL_X, _GL_W = np.polynomial.legendre.leggauss(8)
 _GL_P = 0.5 * (_GL_X + 1.0)
@@ -101,13 +103,18 @@ class Barrier(OneAssetAtExpiry):
     def from_table(cls, tab) -> dict:
         kw = OneAssetAtExpiry.from_table.__func__(cls, tab)
         mon = tab.raw("monitoring", "continuous")
-        if not isinstance(mon, str):
+        if isinstance(mon, str):
+            mon = tab.string("monitoring", "continuous", choices=MONITORINGS)
+        elif isinstance(mon, dict | list):
             mon = schedule_dates(mon, source=tab.source, key="monitoring")
+        else:
+            raise tab.error("monitoring", f"expected \"continuous\", \"daily\" or a schedule "
+                            f"{{ dates = [...] }}, got {show(mon)}")
         kw.update(barrier=tab.number("barrier", positive=True),
                   direction=tab.string("direction", choices=DIRECTIONS),
                   effect=tab.string("effect", choices=EFFECTS),
                   monitoring=mon,
-                  rebate=tab.number("rebate", 0.0, nonnegative=True))
+                  rebate=tab.number("rebate", 0.0, nonnegative=True, limit=MAX_AMOUNT))
         return kw
 
     def check(self, market: Market, source: str | None = None) -> None:
@@ -115,6 +122,7 @@ class Barrier(OneAssetAtExpiry):
         if self.expiry < market.valuation_date:
             raise InputError(f"{self.expiry} is before the valuation date "
                              f"{market.valuation_date}", source=source, key="expiry")
+        check_horizon(market, (self.expiry,), source=source, key="expiry")
 
     # -- state -----------------------------------------------------------------------------
     def breached(self, spot: float) -> bool:

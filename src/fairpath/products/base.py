@@ -17,11 +17,14 @@ from typing import ClassVar
 import numpy as np
 
 from fairpath.errors import InputError
-from fairpath.inputs import did_you_mean
+from fairpath.inputs import MAX_AMOUNT, did_you_mean, show
 from fairpath.market import Market
 
 #: kind name -> product class
 REGISTRY: dict[str, type[Product]] = {}
+#: Latest date a product may use, in years after the valuation date: a later one is a typo
+#: (9999-12-01), and a daily grid out to it would not fit in memory.
+MAX_YEARS = 100
 
 
 @dataclass(frozen=True, slots=True)
@@ -185,6 +188,7 @@ class Product:
         if dates and dates[0] < market.valuation_date:
             raise InputError(f"{dates[0]} is before the valuation date {market.valuation_date}",
                              source=source, key=self.date_key())
+        check_horizon(market, (*dates, self.daily_until()), source=source, key=self.date_key())
 
     def date_key(self) -> str:
         """The product key holding its dates (for error messages)."""
@@ -293,6 +297,19 @@ def pathwise_from_gradient(ps: PathSet, grad: np.ndarray) -> dict[str, np.ndarra
     return out
 
 
+def check_horizon(market: Market, dates, *, source: str | None, key: str) -> None:
+    """Refuse a date more than MAX_YEARS after the valuation date (``None`` entries skipped)."""
+    dates = [d for d in dates if d is not None]
+    if not dates:
+        return
+    last = max(dates)
+    years = (last - market.valuation_date).days / 365.25
+    if years > MAX_YEARS:
+        raise InputError(f"{last} is {years:,.0f} years after the valuation date "
+                         f"{market.valuation_date}; at most {MAX_YEARS} years are priced",
+                         source=source, key=key)
+
+
 def asset_list(assets) -> tuple[str, ...]:
     """A product's ``assets`` as a tuple of distinct names (InputError otherwise)."""
     assets = tuple(assets)
@@ -308,14 +325,25 @@ def read_asset_names(tab) -> tuple[str, ...]:
     assets = tab.list("assets")
     for i, a in enumerate(assets):
         if not isinstance(a, str):
-            raise tab.error(f"assets[{i}]", f"expected an asset name, got {a!r}")
+            raise tab.error(f"assets[{i}]", f"expected an asset name, got {show(a)}")
+    if len(set(assets)) != len(assets):
+        twice = next(a for a in assets if assets.count(a) > 1)
+        raise tab.error("assets", f"{twice!r} is listed twice")
     return tuple(assets)
+
+
+def single_asset_quantity(tab) -> float:
+    """``quantity`` of a single-asset product; ``notional`` is refused with a pointer to it."""
+    if "notional" in tab.data:
+        raise tab.error("notional", "a single-asset option takes 'quantity' (the number of "
+                        "units), not 'notional'")
+    return tab.number("quantity", 1.0, limit=MAX_AMOUNT)
 
 
 def product_class(kind: object, *, source: str | None = None) -> type[Product]:
     """The class registered for a ``kind``; an unknown name lists the known ones."""
     if not isinstance(kind, str) or kind not in REGISTRY:
         known = sorted(REGISTRY)
-        raise InputError(f"unknown product kind {kind!r}{did_you_mean(str(kind), known)}; "
+        raise InputError(f"unknown product kind {show(kind)}{did_you_mean(str(kind), known)}; "
                          f"known: {', '.join(known)}", source=source, key="kind")
     return REGISTRY[kind]

@@ -32,6 +32,7 @@ from scipy.special import ndtr
 
 from fairpath import closed_form as cf
 from fairpath.errors import InputError
+from fairpath.inputs import MAX_AMOUNT, did_you_mean, show
 from fairpath.kernels import extreme_given_last
 from fairpath.market import Market, integrate_vol_product
 from fairpath.products.base import (
@@ -49,6 +50,9 @@ COMBINES = ("worst", "best", "average")
 #: integrated analytically (measured on the benchmark's worst-of put: one pair at three strikes
 #: halved the RMSE over 8 seeds at 32,768 paths, against one strike; five did no better).
 PAIR_MONEYNESS = (0.85, 1.0, 1.2)
+#: Largest ``strike_level`` a product file may give: a larger one is a percentage typed as a
+#: number (105 for 105%).
+MAX_STRIKE_LEVEL = 5.0
 
 
 @dataclass(frozen=True, slots=True)
@@ -128,12 +132,22 @@ class Basket(Product):
         init = tab.table("initial_levels", None)
         levels = ()
         if init is not None:
-            levels = tuple((k, init.number(k, positive=True)) for k in list(init.data))
-        notional = tab.number("notional", 1.0)
-        quantity = tab.number("quantity", 1.0)
+            for k in init.data:
+                if k not in assets:
+                    raise init.error(k, f"{show(k)} is not one of the basket's assets "
+                                     f"{list(assets)}{did_you_mean(k, assets)}")
+            levels = tuple((k, init.number(k, positive=True, limit=MAX_AMOUNT))
+                           for k in list(init.data))
+        notional = tab.number("notional", 1.0, limit=MAX_AMOUNT)
+        quantity = tab.number("quantity", 1.0, limit=MAX_AMOUNT)
+        strike_level = tab.number("strike_level", nonnegative=True)
+        if strike_level > MAX_STRIKE_LEVEL:
+            raise tab.error("strike_level", f"{strike_level:g} is not a fraction of the initial "
+                            f"levels (1.00 = 100%); a percentage? write {strike_level / 100:g} "
+                            f"for {strike_level:g}%")
         return dict(assets=tuple(assets), combine=tab.string("combine", choices=COMBINES),
                     right=tab.string("right", choices=RIGHTS),
-                    strike_level=tab.number("strike_level", nonnegative=True),
+                    strike_level=strike_level,
                     expiry=tab.date("expiry"), weights=weights, notional=notional * quantity,
                     initial_levels=levels,
                     name=tab.string("name", None))

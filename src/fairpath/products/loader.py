@@ -5,7 +5,7 @@ from __future__ import annotations
 from pathlib import Path
 
 from fairpath.errors import InputError
-from fairpath.inputs import Table, read_toml
+from fairpath.inputs import Table, one_line, read_toml, show
 from fairpath.products.base import Product, product_class
 
 
@@ -28,5 +28,6 @@ def product_from_dict(data: dict, *, source: str | None = None) -> Product:
     tab.finish()
     try:
         return cls(**kwargs, source=source)
-    except InputError as exc:
-        raise InputError(exc.problem, source=source, key=exc.key) from None
+    except InputError as exc:  # the terms' own checks: name the file (and keep to one line)
+        key = exc.key if exc.key is None or exc.key.isprintable() else show(exc.key)
+        raise InputError(one_line(exc.problem), source=source, key=key) from None

@@ -10,8 +10,14 @@ import numpy as np
 
 from fairpath import closed_form as cf
 from fairpath.errors import InputError
+from fairpath.inputs import MAX_AMOUNT
 from fairpath.market import Market
-from fairpath.products.base import PathSet, Product, pathwise_from_gradient
+from fairpath.products.base import (
+    PathSet,
+    Product,
+    pathwise_from_gradient,
+    single_asset_quantity,
+)
 
 RIGHTS = ("call", "put")
 
@@ -133,12 +139,12 @@ def _vanilla_from_table(cls, tab):
     kwargs = dict(
         asset=tab.string("asset"),
         right=tab.string("right", choices=RIGHTS),
-        strike=tab.number("strike", nonnegative=True),
+        strike=tab.number("strike", nonnegative=True, limit=MAX_AMOUNT),
         expiry=tab.date("expiry"),
-        quantity=tab.number("quantity", 1.0),
+        quantity=single_asset_quantity(tab),
         name=tab.string("name", None),
     )
     if cls is Digital:
-        kwargs["payout"] = tab.number("payout", 1.0)
+        kwargs["payout"] = tab.number("payout", 1.0, limit=MAX_AMOUNT)
     return kwargs
 
