@@ -454,7 +454,7 @@ BAD_TRADES = [
     ("missing product column", "trade_id,quantity\nHL-0501,1\n", ["missing column", "product"]),
     ("missing trade_id column", "product,quantity\nproducts/european_call.toml,1\n",
      ["missing column", "trade_id"]),
-    ("empty file", "", ["missing column", "trade_id, product"]),
+    ("empty file", "", ["is empty", "trade_id, product"]),
     ("repeated trade_id", "trade_id,product\nHL-0501,products/european_call.toml\n"
      "HL-0502,products/european_put.toml\nHL-0501,products/asian_call.toml\n",
      ["line 4", "'HL-0501'", "repeats line 2"]),

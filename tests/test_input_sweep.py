@@ -522,7 +522,7 @@ PRODUCT_CASES = [
 CSV_CASES = [
     Case("quotes without a quote column", "quotes", "product,price\ncall.toml,8.0\n", None,
          "missing column(s) quote"),
-    Case("quotes empty", "quotes", "", None, "no header"),
+    Case("quotes empty", "quotes", "", None, "is empty"),
     Case("quotes field beyond the CSV limit", "quotes",
          "product,quote\n" + "x" * 200_000 + ",1\n", None, "not valid CSV"),
     Case("quotes not UTF-8", "quotes", b"product,quote\ncall.toml,\xff8.0\n", None,

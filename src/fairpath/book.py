@@ -42,6 +42,7 @@ from pathlib import Path
 
 from fairpath.errors import FairpathError, InputError
 from fairpath.estimate import DEFAULT_PATHS, price
+from fairpath.inputs import read_csv_table
 from fairpath.market import Market
 from fairpath.products.loader import load_product
 from fairpath.sampling import DEFAULT_REPLICATES, normalize_seed
@@ -93,27 +94,10 @@ def trade_stream(trade_id: str) -> tuple[int, int]:
 
 
 def read_trades(path: str | Path) -> list[Trade]:
-    """Rows of a trades CSV; a missing column or a repeated trade id is refused."""
+    """Rows of a trades CSV; a missing or unknown column or a repeated trade id is refused."""
     p = Path(path)
-    try:
-        text = p.read_text(encoding="utf-8-sig")
-    except FileNotFoundError:
-        raise InputError("file not found", source=str(path)) from None
-    except (OSError, UnicodeDecodeError) as exc:
-        raise InputError(f"cannot read: {exc}", source=str(path)) from None
-    try:
-        reader = csv.DictReader(io.StringIO(text))
-        rows = list(reader)
-    except csv.Error as exc:
-        raise InputError(f"not valid CSV: {exc}", source=str(path)) from None
-    cols = [c.strip() for c in (reader.fieldnames or [])]
-    missing = [c for c in ("trade_id", "product") if c not in cols]
-    if missing:
-        raise InputError(f"missing column(s) {', '.join(missing)}; the file has "
-                         f"{', '.join(cols) or 'no header'}", source=str(path))
     trades, seen = [], {}
-    for n, row in enumerate(rows, start=2):
-        row = {(k or "").strip(): (v or "").strip() for k, v in row.items()}
+    for n, row in read_csv_table(path, ("trade_id", "product"), ("quantity",)):
         tid = row.get("trade_id", "")
         if not tid:
             raise InputError("trade_id: empty", source=f"{path} line {n}")

@@ -2,7 +2,9 @@
 
 from __future__ import annotations
 
+import csv
 import difflib
+import io
 import math
 import tomllib
 from collections.abc import Iterable
@@ -217,3 +219,55 @@ def _kind(value: Any) -> str:
     return {dict: "a table", list: "a list", str: "a string", bool: "a boolean",
             int: "an integer", float: "a number", date: "a date", datetime: "a date-time",
             time: "a time"}.get(type(value), type(value).__name__)
+
+
+def read_csv_table(path: str | Path, required: tuple[str, ...], optional: tuple[str, ...] = ()
+                   ) -> list[tuple[int, dict[str, str]]]:
+    """``(line, row)`` for every record of a CSV with a header row, cells stripped.
+
+    A byte-order mark is accepted and header names are stripped; a missing required column,
+    an unknown column (with a did-you-mean), a record with more cells than the header, or
+    malformed CSV (an unclosed quote...) is refused with the file and the line.
+    """
+    p = Path(path)
+    try:
+        text = p.read_text(encoding="utf-8-sig")
+    except FileNotFoundError:
+        raise InputError("file not found", source=str(path)) from None
+    except IsADirectoryError:
+        raise InputError("is a directory, not a CSV file", source=str(path)) from None
+    except (OSError, UnicodeDecodeError) as exc:
+        raise InputError(f"cannot read: {exc}", source=str(path)) from None
+    if "\x00" in text:
+        raise InputError("contains a NUL byte: not a text CSV file", source=str(path))
+    reader = csv.reader(io.StringIO(text), strict=True)
+    try:
+        header = next(reader, None)
+        if header is None:
+            raise InputError("is empty: expected a header row with columns "
+                             f"{', '.join(required)}", source=str(path))
+        cols = [h.strip() for h in header]
+        missing = [c for c in required if c not in cols]
+        if missing:
+            raise InputError(f"missing column(s) {', '.join(missing)}; the file has "
+                             f"{', '.join(c or '(blank)' for c in cols) or 'no header'}",
+                             source=str(path))
+        known = required + optional
+        for c in cols:
+            if c not in known:
+                raise InputError(f"unknown column {c!r}{did_you_mean(c, known)}; known: "
+                                 f"{', '.join(known)}", source=str(path))
+        rows = []
+        for cells in reader:
+            line = reader.line_num
+            if not any(x.strip() for x in cells):
+                continue
+            if len(cells) > len(cols):
+                raise InputError(f"{len(cells)} cells for {len(cols)} columns",
+                                 source=f"{path} line {line}")
+            cells = cells + [""] * (len(cols) - len(cells))
+            rows.append((line, {c: x.strip() for c, x in zip(cols, cells, strict=True)}))
+    except csv.Error as exc:
+        raise InputError(f"line {reader.line_num}: not valid CSV: {exc}",
+                         source=str(path)) from None
+    return rows

@@ -305,3 +305,64 @@ def extreme_given_last(others: np.ndarray, mu: np.ndarray, var: float, k: float,
                         np.ascontiguousarray(mu, dtype=np.float64), float(var), float(k),
                         bool(worst), bool(put), out)
     return out
+
+
+@njit(cache=True, nogil=True)
+def _local_vol_paths(z, corr, dt, log_fwd, lv_var, lv_y0, lv_dy, gbm_var, is_lv, log_x0):
+    """Log-Euler steps of each asset's log-level x (the escrowed level when it pays cash
+    dividends), in place in ``z``: ``x_{k+1} = x_k + log F_{k+1} - log F_k - v/2 + sqrt(v) e``
+    with ``e`` the correlated normal and ``v`` the step's variance: the local variance at
+    ``(t_k, y = x_k - log F_k)`` times the step, or the integrated GBM variance."""
+    n, n_a, n_s = z.shape
+    n_y = lv_var.shape[2]
+    e = np.empty(n_a)
+    x = np.empty(n_a)
+    for p in range(n):
+        for a in range(n_a):
+            x[a] = log_x0[a]
+        for k in range(n_s):
+            for a in range(n_a):
+                acc = 0.0
+                for b in range(a + 1):
+                    acc += corr[a, b] * z[p, b, k]
+                e[a] = acc
+            for a in range(n_a):
+                if is_lv[a]:
+                    y = x[a] - log_fwd[a, k]
+                    u = (y - lv_y0[a]) / lv_dy[a]
+                    if u <= 0.0:
+                        var = lv_var[a, k, 0]
+                    elif u >= n_y - 1:
+                        var = lv_var[a, k, n_y - 1]
+                    else:
+                        i = int(u)
+                        f = u - i
+                        var = lv_var[a, k, i] * (1.0 - f) + lv_var[a, k, i + 1] * f
+                    v = var * dt[k]
+                else:
+                    v = gbm_var[a, k]
+                x[a] += log_fwd[a, k + 1] - log_fwd[a, k] - 0.5 * v + np.sqrt(v) * e[a]
+                z[p, a, k] = x[a]
+
+
+def local_vol_paths(z: np.ndarray, corr: np.ndarray, dt: np.ndarray, log_fwd: np.ndarray,
+                    lv_var: np.ndarray, lv_y0: np.ndarray, lv_dy: np.ndarray,
+                    gbm_var: np.ndarray, is_lv: np.ndarray, log_x0: np.ndarray) -> np.ndarray:
+    """Log-levels on the grid under local volatility (see :func:`_local_vol_paths`), in place.
+
+    ``corr`` is the lower-triangular factor of the assets' correlation; ``log_fwd`` (assets,
+    steps + 1) the log forward of the simulated level at the grid's start and every step;
+    ``lv_var`` (assets, steps, y points) each local-vol asset's table on a uniform grid of
+    forward log-moneyness from ``lv_y0`` by ``lv_dy`` (linear interpolation, flat beyond)."""
+    if not (z.flags.c_contiguous and z.dtype == np.float64):
+        z = np.ascontiguousarray(z, dtype=np.float64)
+    _local_vol_paths(z, np.ascontiguousarray(corr, dtype=np.float64),
+                     np.ascontiguousarray(dt, dtype=np.float64),
+                     np.ascontiguousarray(log_fwd, dtype=np.float64),
+                     np.ascontiguousarray(lv_var, dtype=np.float64),
+                     np.ascontiguousarray(lv_y0, dtype=np.float64),
+                     np.ascontiguousarray(lv_dy, dtype=np.float64),
+                     np.ascontiguousarray(gbm_var, dtype=np.float64),
+                     np.ascontiguousarray(is_lv, dtype=np.bool_),
+                     np.ascontiguousarray(log_x0, dtype=np.float64))
+    return z

@@ -383,10 +383,12 @@ def read_closes(path: str | Path, column: str, *, source: str | None = None,
         raise InputError(f"{where} not found", source=source, key=key) from None
     except (OSError, UnicodeDecodeError) as exc:
         raise InputError(f"cannot read {where}: {exc}", source=source, key=key) from None
+    reader = csv.reader(text.splitlines(), strict=True)
     try:
-        rows = list(csv.reader(text.splitlines()))
+        rows = list(reader)
     except csv.Error as exc:
-        raise InputError(f"{where} is not valid CSV: {exc}", source=source, key=key) from None
+        raise InputError(f"{where} line {reader.line_num}: not valid CSV: {exc}",
+                         source=source, key=key) from None
     if not rows:
         raise InputError(f"{where} is empty", source=source, key=key)
     header = [h.strip() for h in rows[0]]

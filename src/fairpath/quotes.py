@@ -26,10 +26,8 @@ the quotes against their bands.
 
 from __future__ import annotations
 
-import csv
 import dataclasses
 import html
-import io
 import math
 import os
 import platform
@@ -42,6 +40,7 @@ from scipy.optimize import brentq, minimize_scalar
 
 from fairpath.errors import FairpathError, InputError
 from fairpath.estimate import CAUTION, DEFAULT_PATHS, price
+from fairpath.inputs import read_csv_table
 from fairpath.laws import Law
 from fairpath.market import Market, VolCurve
 from fairpath.products.base import Product
@@ -269,26 +268,7 @@ def read_quotes(path: str | Path) -> list[dict]:
 
 def _read_rows(path: str | Path) -> list[tuple[int, dict]]:
     """(line number, row) for every record of a quotes CSV."""
-    p = Path(path)
-    try:
-        text = p.read_text(encoding="utf-8")
-    except FileNotFoundError:
-        raise InputError("file not found", source=str(path)) from None
-    except IsADirectoryError:
-        raise InputError("is a directory, not a CSV file", source=str(path)) from None
-    except (OSError, UnicodeDecodeError) as exc:
-        raise InputError(f"cannot read: {exc}", source=str(path)) from None
-    try:
-        reader = csv.DictReader(io.StringIO(text))
-        rows = [(reader.line_num, row) for row in reader]
-    except csv.Error as exc:
-        raise InputError(f"not valid CSV: {exc}", source=str(path)) from None
-    cols = reader.fieldnames or []
-    missing = [c for c in ("product", "quote") if c not in cols]
-    if missing:
-        raise InputError(f"missing column(s) {', '.join(missing)}; the file has "
-                         f"{', '.join(cols) or 'no header'}", source=str(path))
-    return rows
+    return read_csv_table(path, ("product", "quote"), ("tolerance",))
 
 
 def _number(row: dict, column: str, source: str, *, required: bool) -> float | None:

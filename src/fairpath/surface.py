@@ -1,0 +1,321 @@
+"""Implied-volatility surfaces, their arbitrage checks, and Dupire's local volatility.
+
+A surface is a table of Black volatilities by tenor and by strike as a fraction of spot. It is
+handled in total implied variance ``w(T, y) = sigma(T, K)^2 T`` against forward log-moneyness
+``y = log(K / F(T))``:
+
+* **in strike**, at each tenor, a monotone-preserving cubic (PCHIP, Fritsch-Carlson) through the
+  quoted total variances in ``y``: smooth (continuous first derivative), and it never invents
+  wiggles between quotes; **beyond the quoted strikes the implied vol is flat** (the wing
+  quote carries on), so total variance is constant in ``y`` there;
+* **in maturity**, at fixed forward moneyness, linear in total variance between tenors; before
+  the first tenor the implied vol is that of the first tenor (``w`` grows linearly from 0), and
+  after the last the implied vol of the last tenor carries on (``w`` grows linearly in ``T``).
+
+Arbitrage checks, before any use (a surface that fails is refused, never repaired):
+
+* **calendar**: total variance must not decrease with maturity at fixed forward moneyness;
+* **butterfly**: Gatheral's density condition ``g(y) >= 0`` at every tenor, with
+  ``g = (1 - y w' / (2 w))^2 - w'^2 / 4 (1 / w + 1 / 4) + w'' / 2`` (J. Gatheral and
+  A. Jacquier, "Arbitrage-free SVI volatility surfaces", Quantitative Finance 14(1), 2014,
+  Lemma 2.2), checked on a fine grid across the quoted strikes.
+
+Local volatility by Dupire's formula in total-variance form (J. Gatheral, "The Volatility
+Surface", Wiley 2006, equation 1.10):
+
+``sigma_loc^2(T, y) = (dw/dT) / (1 - y/w dw/dy + 1/4 (-1/4 - 1/w + y^2/w^2) (dw/dy)^2
++ 1/2 d2w/dy2)``,
+
+tabulated on a grid of times and log-moneyness. Where the numerator or the denominator is not
+positive (possible at the grid's far edges even for a clean surface), the local variance is
+floored at ``LOCAL_VAR_FLOOR`` and the floored points are counted and reported with the price.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+from scipy.interpolate import PchipInterpolator
+
+from fairpath.errors import InputError
+
+#: Floor of the local variance where Dupire's formula is not positive (a 1% vol).
+LOCAL_VAR_FLOOR = 1e-4
+#: Points of the log-moneyness grid of the local-vol table, and its half-width in standard
+#: deviations of the longest maturity.
+Y_POINTS = 401
+Y_WIDTH = 6.0
+#: Tolerances of the arbitrage checks (rounding in hand-typed quotes).
+CALENDAR_TOL = 1e-10
+BUTTERFLY_TOL = 1e-10
+
+
+@dataclass(frozen=True, slots=True)
+class VolSurface:
+    """Black vols ``vols[i][j]`` at ``times[i]`` (years) and strike ``strikes[j]`` x spot.
+
+    ``forward_ratio(t)`` (the forward over the spot) converts strikes to forward moneyness;
+    it is set when the surface is attached to an asset (:meth:`attach`).
+
+    Examples
+    --------
+    >>> s = VolSurface((0.5, 1.0), (0.9, 1.0, 1.1), ((0.22, 0.2, 0.19), (0.22, 0.2, 0.19)))
+    >>> round(float(s.implied(1.0, 1.0)), 6)  # at the money, forward = spot here
+    0.2
+    """
+
+    times: tuple[float, ...]
+    strikes: tuple[float, ...]
+    vols: tuple[tuple[float, ...], ...]
+    #: forward / spot at each tenor (1 until attached to an asset)
+    fwd_ratio: tuple[float, ...] = ()
+    label: str = field(default="", compare=False)
+
+    def __post_init__(self):
+        t = np.asarray(self.times, dtype=float)
+        k = np.asarray(self.strikes, dtype=float)
+        v = np.asarray(self.vols, dtype=float)
+        if t.ndim != 1 or len(t) < 1 or np.any(~np.isfinite(t)) or np.any(t <= 0):
+            raise InputError("tenors must be positive", key="vol_surface.tenors")
+        if np.any(np.diff(t) <= 0):
+            raise InputError("tenors must be strictly increasing", key="vol_surface.tenors")
+        if k.ndim != 1 or len(k) < 2 or np.any(~np.isfinite(k)) or np.any(k <= 0):
+            raise InputError("strikes must be at least two positive fractions of spot",
+                             key="vol_surface.strikes")
+        if np.any(np.diff(k) <= 0):
+            raise InputError("strikes must be strictly increasing", key="vol_surface.strikes")
+        if v.shape != (len(t), len(k)):
+            raise InputError(f"must have one row of {len(k)} vols per tenor ({len(t)} rows); "
+                             f"got shape {v.shape if v.ndim == 2 else 'ragged rows'}",
+                             key="vol_surface.vols")
+        if np.any(~np.isfinite(v)) or np.any(v <= 0):
+            i, j = np.argwhere(~(np.isfinite(v) & (v > 0)))[0]
+            raise InputError(f"must be positive: vols[{i}][{j}] = {v[i, j]}",
+                             key="vol_surface.vols")
+        if self.fwd_ratio and len(self.fwd_ratio) != len(t):
+            raise InputError("one forward ratio per tenor", key="vol_surface")
+
+    # -- construction ----------------------------------------------------------------------
+    def attach(self, forward_ratio) -> VolSurface:
+        """The surface with forwards (``forward_ratio(t) = F(t) / spot``) for moneyness."""
+        return VolSurface(self.times, self.strikes, self.vols,
+                          tuple(float(forward_ratio(t)) for t in self.times), self.label)
+
+    def shifted(self, dv: float) -> VolSurface:
+        """Every quoted vol moved by ``dv`` (a parallel vega bump)."""
+        return VolSurface(self.times, self.strikes,
+                          tuple(tuple(x + dv for x in row) for row in self.vols),
+                          self.fwd_ratio, self.label)
+
+    # -- interpolation ---------------------------------------------------------------------
+    def _rows(self):
+        """Per tenor: forward log-moneyness of the quotes and a PCHIP of total variance."""
+        fr = self.fwd_ratio or tuple(1.0 for _ in self.times)
+        out = []
+        for i, t in enumerate(self.times):
+            y = np.log(np.asarray(self.strikes) / fr[i])
+            w = np.asarray(self.vols[i]) ** 2 * t
+            out.append((y, w, PchipInterpolator(y, w, extrapolate=False)))
+        return out
+
+    def total_variance(self, t, y, rows=None) -> np.ndarray:
+        """``w(t, y)`` on arrays (broadcast), with the rules of the module notes."""
+        rows = rows if rows is not None else _rows_cached(self)
+        t, y = np.broadcast_arrays(np.asarray(t, dtype=float), np.asarray(y, dtype=float))
+        ft, fy = t.ravel(), y.ravel()
+        per = self._implied_variances(fy, rows)
+        ts = np.asarray(self.times)
+        out = np.empty(ft.shape)
+        before, after = ft <= ts[0], ft >= ts[-1]
+        mid = ~(before | after)
+        out[before] = per[0, before] * ft[before]
+        out[after] = per[-1, after] * ft[after]
+        if mid.any():
+            j = np.searchsorted(ts, ft[mid], side="right") - 1
+            cols = np.nonzero(mid)[0]
+            t0, t1 = ts[j], ts[j + 1]
+            wa, wb = per[j, cols] * t0, per[j + 1, cols] * t1
+            out[mid] = wa + (wb - wa) * (ft[mid] - t0) / (t1 - t0)
+        return out.reshape(t.shape)
+
+    def variance_slope(self, t: float, y: np.ndarray, rows=None) -> np.ndarray:
+        """``dw/dT`` just after ``t`` (exact for the piecewise-linear maturity rule)."""
+        rows = rows if rows is not None else _rows_cached(self)
+        per = self._implied_variances(np.asarray(y, dtype=float), rows)
+        ts = np.asarray(self.times)
+        if t < ts[0]:
+            return per[0]
+        if t >= ts[-1]:
+            return per[-1]
+        j = int(np.searchsorted(ts, t, side="right") - 1)
+        return (per[j + 1] * ts[j + 1] - per[j] * ts[j]) / (ts[j + 1] - ts[j])
+
+    def _implied_variances(self, y: np.ndarray, rows) -> np.ndarray:
+        """(tenors, len(y)): each tenor's implied variance (vol^2) at forward moneyness y."""
+        return np.stack([_row_eval(r, y) / T for r, T in zip(rows, self.times, strict=True)])
+
+    def implied(self, t, m) -> np.ndarray:
+        """Black vol at time ``t`` and strike ``m`` x spot."""
+        t = np.asarray(t, dtype=float)
+        fr = np.interp(t, self.times, self.fwd_ratio or [1.0] * len(self.times))
+        y = np.log(np.asarray(m, dtype=float) / fr)
+        return np.sqrt(self.total_variance(np.ravel(t) * np.ones_like(np.ravel(y)),
+                                           np.ravel(y)).reshape(np.broadcast(t, y).shape) / t)
+
+    def atm_vols(self) -> tuple[float, ...]:
+        """Black vol at the forward (``y = 0``) at each tenor: the at-the-money term
+        structure used by ``--flat-vol``."""
+        rows = _rows_cached(self)
+        return tuple(float(math.sqrt(_row_eval(r, np.zeros(1))[0] / t))
+                     for r, t in zip(rows, self.times, strict=True))
+
+    # -- arbitrage -------------------------------------------------------------------------
+    def check(self, *, source: str | None = None, key: str = "vol_surface",
+              tenor_names=None) -> None:
+        """Refuse a surface with a calendar or butterfly arbitrage, naming where."""
+        names = tenor_names or [f"{t:g}y" for t in self.times]
+        rows = _rows_cached(self)
+        ys = np.concatenate([r[0] for r in rows])
+        grid = np.linspace(ys.min(), ys.max(), 801)
+        prev = None
+        for i, (r, t) in enumerate(zip(rows, self.times, strict=True)):
+            w = _row_eval(r, grid)
+            if prev is not None:
+                bad = w < prev - CALENDAR_TOL * max(1.0, float(np.max(prev)))
+                if bad.any():
+                    y = grid[np.argmax(bad)]
+                    raise InputError(
+                        f"calendar arbitrage: total variance falls from tenor {names[i - 1]} "
+                        f"to {names[i]} at strike {self._strike_name(i, y)} (forward "
+                        f"moneyness {y:+.3f})", source=source, key=key)
+            prev = w
+            g, y = butterfly(r, t)
+            if g.min() < -BUTTERFLY_TOL:
+                yy = y[np.argmin(g)]
+                raise InputError(
+                    f"butterfly arbitrage at tenor {names[i]} near strike "
+                    f"{self._strike_name(i, yy)}: Gatheral's density condition g = "
+                    f"{g.min():.3g} < 0 (the smile is too steep or too curved there)",
+                    source=source, key=key)
+
+    def _strike_name(self, i: int, y: float) -> str:
+        fr = (self.fwd_ratio or [1.0] * len(self.times))[i]
+        m = fr * math.exp(y)
+        j = int(np.argmin(np.abs(np.log(np.asarray(self.strikes) / m))))
+        return f"{self.strikes[j]:g} (x spot)"
+
+    # -- local volatility ------------------------------------------------------------------
+    def local_variance_table(self, t_grid: np.ndarray) -> LocalVolTable:
+        """Dupire's local variance on ``t_grid`` (the simulation's step starts) and a uniform
+        grid of forward log-moneyness, with the floored points counted."""
+        rows = _rows_cached(self)
+        t_grid = np.asarray(t_grid, dtype=float)
+        t_max = max(float(t_grid.max()) if len(t_grid) else 0.0, self.times[-1])
+        w_max = float(self.total_variance(t_max, 0.0, rows))
+        half = Y_WIDTH * math.sqrt(max(w_max, 1e-8))
+        ys = np.concatenate([r[0] for r in rows])
+        half = max(half, float(np.abs(ys).max()) * 1.2)
+        y = np.linspace(-half, half, Y_POINTS)
+        dy = y[1] - y[0]
+        table = np.empty((len(t_grid), Y_POINTS))
+        floored = 0
+        for k, t in enumerate(t_grid):
+            t = max(float(t), 1e-6)
+            w = self.total_variance(np.full(Y_POINTS, t), y, rows)
+            dwdt = self.variance_slope(t, y, rows)
+            wy = np.gradient(w, dy)
+            wyy = np.gradient(wy, dy)
+            den = (1.0 - y / w * wy + 0.25 * (-0.25 - 1.0 / w + y * y / (w * w)) * wy * wy
+                   + 0.5 * wyy)
+            with np.errstate(divide="ignore", invalid="ignore"):
+                lv = np.where((den > 0) & (dwdt > 0), dwdt / den, -1.0)
+            bad = ~(lv > LOCAL_VAR_FLOOR)
+            floored += int(bad.sum())
+            table[k] = np.where(bad, LOCAL_VAR_FLOOR, lv)
+        return LocalVolTable(t_grid, float(y[0]), float(dy), table, floored, table.size)
+
+
+def _row_eval(row, y: np.ndarray) -> np.ndarray:
+    """Total variance of one tenor at forward log-moneyness ``y``: the PCHIP inside the quotes,
+    the wing quote's total variance beyond (flat implied vol)."""
+    ys, ws, f = row
+    y = np.asarray(y, dtype=float)
+    out = np.where(y <= ys[0], ws[0], np.where(y >= ys[-1], ws[-1], 0.0))
+    inside = (y > ys[0]) & (y < ys[-1])
+    if inside.any():
+        out = out.astype(float)
+        out[inside] = f(y[inside])
+    return out
+
+
+def butterfly(row, t: float, points: int = 801) -> tuple[np.ndarray, np.ndarray]:
+    """Gatheral's ``g(y)`` of one tenor across its quoted strikes (fine grid)."""
+    ys, ws, f = row
+    y = np.linspace(ys[0], ys[-1], points)
+    w = f(y)
+    w1 = f.derivative(1)(y)
+    w2 = f.derivative(2)(y)
+    g = (1 - y * w1 / (2 * w)) ** 2 - w1 * w1 / 4 * (1 / w + 0.25) + w2 / 2
+    return g, y
+
+
+_ROWS: dict = {}
+
+
+def _rows_cached(s: VolSurface):
+    key = (s.times, s.strikes, s.vols, s.fwd_ratio)
+    rows = _ROWS.get(key)
+    if rows is None:
+        if len(_ROWS) > 256:
+            _ROWS.clear()
+        rows = _ROWS[key] = s._rows()
+    return rows
+
+
+@dataclass(frozen=True, slots=True)
+class LocalVolTable:
+    """Local variance on step times (rows) and a uniform forward log-moneyness grid."""
+
+    times: np.ndarray
+    y0: float
+    dy: float
+    variance: np.ndarray  # (times, Y_POINTS)
+    floored: int
+    points: int
+
+
+def parse_surface(tab, valuation, day_count: str) -> VolSurface:
+    """A surface from a market file's ``[assets.NAME.vol_surface]`` table (``tenors``,
+    ``strikes`` as fractions of spot, ``vols`` one row per tenor); errors name the key."""
+    from fairpath.dates import parse_tenor, year_fraction
+
+    tenors = tab.list("tenors")
+    times = []
+    for i, text in enumerate(tenors):
+        ten = parse_tenor(text, source=tab.source, key=tab.key(f"tenors[{i}]"))
+        times.append(year_fraction(valuation, ten.add_to(valuation), day_count))
+    if any(b <= a for a, b in zip(times, times[1:], strict=False)):
+        raise tab.error("tenors", "tenors must be strictly increasing")
+    strikes = [tab.check_number(f"strikes[{j}]", k, positive=True)
+               for j, k in enumerate(tab.list("strikes"))]
+    if len(strikes) < 2:
+        raise tab.error("strikes", "give at least two strikes")
+    if any(b <= a for a, b in zip(strikes, strikes[1:], strict=False)):
+        raise tab.error("strikes", "strikes must be strictly increasing")
+    rows = tab.list("vols")
+    if len(rows) != len(times):
+        raise tab.error("vols", f"has {len(rows)} rows for {len(times)} tenors (one row per "
+                        "tenor)")
+    vols = []
+    for i, row in enumerate(rows):
+        if not isinstance(row, list) or len(row) != len(strikes):
+            raise tab.error(f"vols[{i}]", f"must hold {len(strikes)} vols, one per strike")
+        vols.append(tuple(tab.check_number(f"vols[{i}][{j}]", v, positive=True)
+                          for j, v in enumerate(row)))
+    tab.finish()
+    try:
+        return VolSurface(tuple(times), tuple(strikes), tuple(vols), label=tab.prefix)
+    except InputError as exc:
+        raise InputError(exc.problem, source=tab.source, key=tab.prefix) from None
