@@ -795,6 +795,8 @@ BGK_BETA = 0.5826
 
 _SQRT_HALF = np.sqrt(0.5)
 _TINY = np.finfo(np.float64).tiny
+#: Barrier options are priced on the deterministic forward path below this sigma sqrt(T).
+_DET_VOL = 1e-7
 _DIRECTION = {"down": 1.0, "up": -1.0}  # Haug's eta
 
 # Haug 2007 [H07] chapter 4, standard barrier options: coefficients of the terms (A, B, C, D)
@@ -868,7 +870,10 @@ def _barrier(x: _BarrierInputs, right: str, direction: str, effect: str,
     b = r - q
     df = np.exp(-r * T)
     breached = np.less_equal(S, level) if eta > 0 else np.greater_equal(S, level)
-    det = ~breached & ((T == 0.0) | (sig * sig < _TINY) | (S == 0.0))
+    # below sigma sqrt(T) ~ 1e-7 the formulas lose digits to cancellation (3e-4 of a rebate at
+    # 1e-8) while the deterministic path is exact to about 1e-9: use the latter there
+    det = ~breached & ((T == 0.0) | (sig * np.sqrt(np.maximum(T, 0.0)) < _DET_VOL)
+                       | (S == 0.0))
     never = ~breached & ~det & (H == 0.0)  # a down barrier at 0 is never reached
     reg = ~(breached | det | never)
     vanilla = _bsm(_Inputs(S, X, T, r, q, sig, np.ones_like(S)), phi, greeks=False)["price"]

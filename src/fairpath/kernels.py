@@ -175,19 +175,28 @@ def _average_given_shape(x, weights, beta, mean_y_weights, m_y, v_y, k_eff, put,
         if k_eff <= 0.0:  # the average is above the strike whatever happens
             out[p] = 0.0 if put else total - k_eff
             continue
-        # the root u* of A(u) = sum a_i exp(beta_i u) = k_eff: A is convex and increasing, so
-        # Newton's method converges (from the right after at most one step)
+        # the root u* of log A(u) = log k_eff, A(u) = sum a_i exp(beta_i u): log A is convex
+        # and increasing with slope between the smallest and largest beta, so Newton's method
+        # converges (from the right after at most one step) and nothing overflows
         u = 0.0
-        for _ in range(100):
-            f = -k_eff
-            fp = 0.0
+        log_k = np.log(k_eff)
+        fp = 0.0
+        for _ in range(200):
+            top = -np.inf
             for i in range(m):
-                e = a[i] * np.exp(beta[i] * u)
-                f += e
-                fp += beta[i] * e
+                if a[i] > 0.0:
+                    top = max(top, np.log(a[i]) + beta[i] * u)
+            s0 = 0.0
+            s1 = 0.0
+            for i in range(m):
+                if a[i] > 0.0:
+                    e = np.exp(np.log(a[i]) + beta[i] * u - top)
+                    s0 += e
+                    s1 += beta[i] * e
+            fp = s1 / s0
             if fp <= 0.0:
                 break
-            step = f / fp
+            step = (top + np.log(s0) - log_k) / fp
             u -= step
             if abs(step) <= 1e-14 * (1.0 + abs(u)):
                 break

@@ -14,6 +14,7 @@ A market is built from a TOML file by :func:`load_market` (format in the README)
 from __future__ import annotations
 
 import dataclasses
+import math
 from dataclasses import dataclass, field
 from datetime import date
 from pathlib import Path
@@ -55,6 +56,12 @@ class DiscountCurve:
 
     times: tuple[float, ...]
     zero_rates: tuple[float, ...]
+
+    def __post_init__(self):
+        if not all(math.isfinite(r) for r in self.zero_rates) or \
+                not all(math.isfinite(t) and t > 0 for t in self.times):
+            raise InputError(f"rates must be finite numbers and pillars positive, got "
+                             f"{self.zero_rates} at {self.times}", key="discount")
 
     @classmethod
     def flat(cls, rate: float) -> DiscountCurve:

@@ -31,6 +31,7 @@ from datetime import date
 from typing import ClassVar
 
 import numpy as np
+from scipy.special import ndtri
 from scipy.stats import invgauss
 
 from fairpath import closed_form as cf
@@ -48,6 +49,7 @@ MONITORINGS = ("continuous", "daily")
 #: Gauss-Legendre nodes on (0, 1) for the expected discount factor at the hitting time.
 _GL_X, _GL_W = np.polynomial.legendre.leggauss(8)
 _GL_P = 0.5 * (_GL_X + 1.0)
+_GL_Z = ndtri(_GL_P)
 _GL_W = 0.5 * _GL_W
 
 
@@ -204,6 +206,8 @@ class Barrier(OneAssetAtExpiry):
     def _continuous(self, ps: PathSet):
         """Survival probability and the discounted value of 1 paid at the hitting time."""
         cols = ps.grid_columns(ps.market.valuation_date, self.expiry)
+        if not len(cols):  # expiring today, not breached: nothing can cross any more
+            return np.ones(ps.n), np.zeros(ps.n)
         h = math.log(self.barrier)
         sign = 1.0 if self.direction == "down" else -1.0
         x = np.log(ps.grid_levels[:, 0, cols])
@@ -267,6 +271,10 @@ class Barrier(OneAssetAtExpiry):
                                                monitoring_count=m)) * self.quantity
 
 
+#: Below this squared coefficient of variation the hitting time is taken as normal.
+_NEAR_NORMAL = 1e-4
+
+
 def expected_discount_at_hit(a: np.ndarray, b: np.ndarray, v: np.ndarray,
                              rate_dt: np.ndarray) -> np.ndarray:
     """E[exp(-r * tau)] for the hitting time tau of a Brownian bridge, given that it hits.
@@ -279,17 +287,31 @@ def expected_discount_at_hit(a: np.ndarray, b: np.ndarray, v: np.ndarray,
     ``a**2``; then ``u = s v / (v + s)`` and the calendar time is ``u / v`` of the step (constant
     vol within the step). The expectation is an 8-point Gauss-Legendre rule in probability.
     """
-    a = np.asarray(a, dtype=float)
-    b = np.maximum(np.asarray(b, dtype=float), 1e-300)
-    v = np.asarray(v, dtype=float)
+    a, b, v = np.broadcast_arrays(np.asarray(a, dtype=float),
+                                  np.maximum(np.asarray(b, dtype=float), 1e-300),
+                                  np.asarray(v, dtype=float))
+    # the hitting time s is inverse Gaussian with mean a v / b and squared coefficient of
+    # variation v / (a b); when that is small, s is nearly normal (its quantiles mean (1 + cv
+    # z)), and when it vanishes the bridge crosses where its straight line does
+    cv2 = np.where(a * b > 0, v / np.where(a * b > 0, a * b, 1.0), np.inf)
     mean = a * v / b
-    shape = a * a
-    # boost's quantile warns (and returns inf) when the mean is huge (an end point on the
-    # barrier): the hit is then at the end of the step, which the next lines handle
-    with np.errstate(over="ignore", divide="ignore", invalid="ignore"), \
-            warnings.catch_warnings():
-        warnings.simplefilter("ignore", RuntimeWarning)
-        s = invgauss.ppf(_GL_P[:, None], (mean / shape)[None, :], scale=shape[None, :])
-        frac = np.where(np.isfinite(s), s / (v + s), 1.0)
+    frac = np.ones((len(_GL_P), a.size))
+    near = cv2 <= _NEAR_NORMAL
+    if near.any():
+        s = mean[near][None, :] * (1.0 + np.sqrt(cv2[near])[None, :] * _GL_Z[:, None])
+        frac[:, near] = np.clip(s / (v[near][None, :] + s), 0.0, 1.0)
+    rest = ~near & (a > 0) & (v > 0)
+    if rest.any():
+        shape = a[rest] * a[rest]
+        # boost's quantile warns (and returns inf) when the mean is huge (an end point on the
+        # barrier): the hit is then at the end of the step
+        with np.errstate(over="ignore", divide="ignore", invalid="ignore"), \
+                warnings.catch_warnings():
+            warnings.simplefilter("ignore", RuntimeWarning)
+            s = invgauss.ppf(_GL_P[:, None], (mean[rest] / shape)[None, :],
+                             scale=shape[None, :])
+            frac[:, rest] = np.where(np.isfinite(s), s / (v[rest][None, :] + s), 1.0)
     frac = np.where(a[None, :] > 0, np.nan_to_num(frac, nan=1.0), 0.0)
+    steady = (v == 0) & (a > 0)
+    frac[:, steady] = (a / (a + b))[steady]
     return _GL_W @ np.exp(-np.asarray(rate_dt)[None, :] * frac)
