@@ -154,13 +154,13 @@ def implied_vol(product: Product, market: Market, quote: float, **settings
         try:
             fs.append(f(v))
         except InputError as exc:
-            if not (exc.key or "").endswith(".law"):
+            if not (exc.key or "").endswith((".law", ".vol")):
                 raise
-            break  # a heavy-tailed law refuses this vol and any higher one
+            break  # this vol (and any higher one) is too high for the paths or the law
         grid.append(v)
     top = grid[-1] if grid else MIN_VOL
     if len(grid) < 2:
-        return None, "the shock law refuses every vol of the search"
+        return None, "every vol of the search is refused (too high for the paths or the law)"
     roots = [v for v, y in zip(grid, fs, strict=True) if y == 0]
     brackets = [(a, b) for a, fa, b, fb in zip(grid, fs, grid[1:], fs[1:], strict=False)
                 if fa * fb < 0]
