@@ -256,12 +256,12 @@ MARKET_CASES = [
       "assets.NORDA.dividend_yield", "a percentage? write 0.02"),
     m("dividend yield misspelt", "dividend_yield = 0.02", "dividend_yeild = 0.02",
       "assets.NORDA.dividend_yeild", "did you mean 'dividend_yield'"),
-    m("vol surface not supported", "vol = 0.38",
-      'vol = 0.38\n[assets.VIREO.vol_surface]\ntenors = ["1Y"]\nstrikes = [1.0]\nvols = [[0.3]]',
-      "assets.VIREO.vol_surface", "not supported"),
-    m("cash dividends not supported", "vol = 0.38",
-      "vol = 0.38\ndividends = [{ ex_date = 2027-03-15, amount = 1.2 }]",
-      "assets.VIREO.dividends", "not supported"),
+    m("vol surface beside a vol", "vol = 0.38",
+      'vol = 0.38\n[assets.VIREO.vol_surface]\ntenors = ["1Y"]\nstrikes = [0.9, 1.0]\n'
+      'vols = [[0.3, 0.3]]', "assets.VIREO.vol_surface", "not both"),
+    m("cash dividends worth more than the spot", "vol = 0.38",
+      "vol = 0.38\ndividends = [{ ex_date = 2027-03-15, amount = 300.0 }]",
+      "assets.VIREO.dividends", "larger than the level"),
     # laws of returns
     Case("law unknown", "market", with_law('law = "gaussian"'), "assets.NORDA.law",
          "unknown law 'gaussian'"),

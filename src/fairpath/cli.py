@@ -71,6 +71,11 @@ def _add_law_options(p: argparse.ArgumentParser, compare: bool = False) -> None:
                    help="CSV of daily closes for an empirical law")
     p.add_argument("--column", default="close",
                    help="column of closes in --history (default %(default)s)")
+    p.add_argument("--flat-vol", action="store_true",
+                   help="price with each surface's at-the-money term structure instead of "
+                        "local volatility (to see how much of a price is the smile)")
+    p.add_argument("--steps-per-day", type=_positive_int, default=1,
+                   help="under local volatility, log-Euler steps per weekday (default 1)")
 
 
 def _law(args, kind: str | None, flag: str):
@@ -92,6 +97,8 @@ def _market(args):
                              + (f" or --compare-law {kind}" if hasattr(args, "compare_law")
                                 else ""), key=flag)
     market = load_market(args.market)
+    if getattr(args, "flat_vol", False):
+        market = market.with_flat_vol()
     law = _law(args, getattr(args, "law", None), "--law")
     return market if law is None else market.with_law(law)
 
@@ -230,7 +237,8 @@ def _price(args) -> int:
                          seed=args.seed, antithetic=args.antithetic,
                          control=not args.no_control, target_stderr=args.target_stderr,
                          max_paths=args.max_paths, replicates=args.replicates,
-                         source=args.product, progress=not args.json and sys.stderr.isatty())
+                         source=args.product, progress=not args.json and sys.stderr.isatty(),
+                         steps_per_day=args.steps_per_day)
     return _emit(res, args.json)
 
 
@@ -254,7 +262,8 @@ def _check(args) -> int:
     other = _law(args, args.compare_law, "--compare-law")
     checks = check_quotes(args.quotes, market, vol_band=args.vol_band, paths=args.paths,
                           sampler=args.sampler, seed=args.seed, compare_law=other,
-                          progress=not args.json and sys.stderr.isatty())
+                          progress=not args.json and sys.stderr.isatty(),
+                          steps_per_day=args.steps_per_day)
     if args.report:
         write_report(args.report, checks, market,
                      {"quotes": args.quotes, "market": args.market, "paths": args.paths,
@@ -283,6 +292,9 @@ def _check(args) -> int:
         if c.fair_coupon is not None:
             print(f"{'':<34} coupon {c.coupon:.4%}, fair coupon at the quote "
                   f"{c.fair_coupon:.4%}")
+        if c.flat_vol_price is not None:
+            print(f"{'':<34} with the at-the-money vols (no smile): {c.flat_vol_price:.4f} "
+                  f"({c.flat_vol_price - c.price:+.4f})")
         if c.other_price is not None:
             print(f"{'':<34} under the {c.other_law} law: {c.other_price:.4f} "
                   f"(stderr {c.other_stderr:.4f}, {c.other_price - c.price:+.4f})")
@@ -298,7 +310,8 @@ def _greeks(args) -> int:
     market = _market(args)
     product = load_product(args.product)
     res = greeks(product, market, paths=args.paths, sampler=args.sampler, seed=args.seed,
-                 method=args.method, replicates=args.replicates, source=args.product)
+                 method=args.method, replicates=args.replicates, source=args.product,
+                 steps_per_day=args.steps_per_day)
     return _emit(res, args.json)
 
 
@@ -308,7 +321,8 @@ def _solve(args) -> int:
     market = _market(args)
     product = load_product(args.product)
     res = solve(product, market, args.key, args.target, paths=args.paths, sampler=args.sampler,
-                seed=args.seed, replicates=args.replicates, source=args.product)
+                seed=args.seed, replicates=args.replicates, source=args.product,
+                steps_per_day=args.steps_per_day)
     return _emit(res, args.json)
 
 
@@ -319,7 +333,7 @@ def _book(args) -> int:
     summary = price_book(args.trades, market, args.out, workers=args.workers,
                          scheduler=args.scheduler, greeks=args.greeks, paths=args.paths,
                          sampler=args.sampler, seed=args.seed, replicates=args.replicates,
-                         progress=sys.stderr.isatty())
+                         progress=sys.stderr.isatty(), steps_per_day=args.steps_per_day)
     print(summary)
     print(f"results in {args.out}")
     print(f"\n{estimate.CAUTION}")

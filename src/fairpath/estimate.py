@@ -249,7 +249,8 @@ class Simulation:
     """
 
     def __init__(self, products: list[Product], market: Market, sampler: Sampler,
-                 controls: list[list[ControlVariate]], source: str | None = None):
+                 controls: list[list[ControlVariate]], source: str | None = None,
+                 steps_per_day: int = 1):
         self.products = list(products)
         self.market = market
         self.sampler = sampler
@@ -266,8 +267,9 @@ class Simulation:
             daily = p.daily_until()
             if daily is not None:
                 future.update(weekdays_between(val, daily))
-        if future and not self.model.normal:
-            # a non-normal law is a law of daily shocks: step on every weekday
+        if future and (not self.model.normal or market.local_vol(self.names)):
+            # a non-normal law is a law of daily shocks, and local volatility moves with the
+            # level: step on every weekday
             future.update(weekdays_between(val, max(future)))
         self.grid_dates = tuple(sorted(future))
         self.grid_times = np.atleast_1d(market.time(self.grid_dates)).astype(float) \
@@ -276,12 +278,16 @@ class Simulation:
         # per product: its dates and their grid columns (-1 = on the valuation date: the spot)
         self.dates = [tuple(p.observation_dates()) for p in self.products]
         self.obs_index = [np.array([pos.get(d, -1) for d in ds], dtype=int) for ds in self.dates]
-        self.params = self.model.steps(self.grid_times) if self.grid_dates else None
+        self.params = self.model.steps(self.grid_times, steps_per_day) \
+            if self.grid_dates else None
+        #: the times the sampler draws for (finer than the grid under local volatility)
+        self.sim_times = self.params.fine_times if self.params is not None else self.grid_times
         self.spots = self.model.spots
 
     @property
     def steps(self) -> int:
-        return len(self.grid_dates)
+        """Simulated steps (the grid's dates, or more under local volatility)."""
+        return len(self.sim_times)
 
     def pathsets(self, log_levels: np.ndarray) -> list[PathSet]:
         var = self.params.variance if self.params is not None else np.zeros((len(self.names), 0))
@@ -385,7 +391,7 @@ class Simulation:
         out: dict[Block, BlockResult] = {}
 
         def pieces():
-            for drawn in self.sampler.unit_pieces(unit, len(self.names), self.grid_times,
+            for drawn in self.sampler.unit_pieces(unit, len(self.names), self.sim_times,
                                                   piece):
                 yield from drawn
 
@@ -448,7 +454,7 @@ class Simulation:
         """The first product's discounted payoff on every path of ``blocks``."""
         out = []
         for b in blocks:
-            z = self.sampler.normals([b], len(self.names), self.grid_times)
+            z = self.sampler.normals([b], len(self.names), self.sim_times)
             x = simulate_log_levels(self.params, self.spots, z)
             ps = self.pathsets(x)[0]
             out.append(np.asarray(self.products[0].payoff(ps), dtype=float))
@@ -456,7 +462,7 @@ class Simulation:
 
     def level_samples(self, block: Block) -> np.ndarray:
         """Levels on the grid of one block's paths, (paths, assets, grid dates)."""
-        z = self.sampler.normals([block], len(self.names), self.grid_times)
+        z = self.sampler.normals([block], len(self.names), self.sim_times)
         return np.exp(simulate_log_levels(self.params, self.spots, z))
 
     def deterministic_values(self) -> list[np.ndarray]:
@@ -597,6 +603,33 @@ def check_law_tails(market: Market, names, variance: np.ndarray, paths: int) -> 
                 "lower vol or more paths", source=market.source, key=f"assets.{n}.law")
 
 
+def last_date(products: list[Product], market: Market) -> date:
+    """The last date any of the products needs (observations, daily monitoring)."""
+    dates = [market.valuation_date]
+    for p in products:
+        dates.extend(p.observation_dates())
+        daily = p.daily_until()
+        if daily is not None:
+            dates.append(daily)
+    return max(dates)
+
+
+def model_notes(market: Market, names, steps_per_day: int = 1) -> list[str]:
+    """What a result says about local volatility and cash dividends (empty without)."""
+    out = []
+    lv = market.local_vol(names)
+    if lv:
+        out.append(f"local volatility from the implied-vol surface of {', '.join(lv)} "
+                   "(Dupire, total-variance form): log-Euler steps on every weekday"
+                   + (f", {steps_per_day} per day" if steps_per_day > 1 else ""))
+    divs = [n for n in names if market.dividend_times(n)]
+    if divs:
+        out.append(f"cash dividends of {', '.join(divs)}: escrowed model (the level is the "
+                   "diffusing part plus the value of the dividends to come, so it drops by the "
+                   "amount on each ex-date)")
+    return out
+
+
 def law_notes_for(market: Market, names) -> list[str]:
     """What a result says when some of its assets' shocks are not normal (empty otherwise)."""
     odd = market.non_normal(names)
@@ -620,7 +653,7 @@ def price(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
           max_paths: int = DEFAULT_MAX_PATHS, replicates: int = DEFAULT_REPLICATES,
           chunk_paths: int | None = None, source: str | None = None,
           progress: bool = False, threads: int | None = None,
-          stream: tuple[int, ...] = ()) -> PriceResult:
+          stream: tuple[int, ...] = (), steps_per_day: int = 1) -> PriceResult:
     """Monte Carlo price of ``product`` on ``market``.
 
     Parameters
@@ -646,6 +679,8 @@ def price(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
     threads : int, optional
         Threads to simulate with (default: ``FAIRPATH_THREADS`` or every core); never changes
         the result.
+    steps_per_day : int
+        Under local volatility, log-Euler steps per weekday (default 1).
     stream : tuple of int
         Extra key of every random stream (``SeedSequence(seed, spawn_key=(*stream, ...))``):
         a book gives each trade its own numbers this way.
@@ -664,7 +699,8 @@ def price(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
     return price_many([product], market, paths=paths, sampler=sampler, seed=seed,
                       antithetic=antithetic, control=control, target_stderr=target_stderr,
                       max_paths=max_paths, replicates=replicates, chunk_paths=chunk_paths,
-                      source=source, progress=progress, threads=threads, stream=stream)[0]
+                      source=source, progress=progress, threads=threads, stream=stream,
+                      steps_per_day=steps_per_day)[0]
 
 
 def price_many(products: list[Product], market: Market, *, paths: int = DEFAULT_PATHS,
@@ -673,8 +709,8 @@ def price_many(products: list[Product], market: Market, *, paths: int = DEFAULT_
                max_paths: int = DEFAULT_MAX_PATHS, replicates: int = DEFAULT_REPLICATES,
                chunk_paths: int | None = None, source: str | None = None,
                control_set: tuple[str, ...] | None = None, progress: bool = False,
-               threads: int | None = None, stream: tuple[int, ...] = ()
-               ) -> list[PriceResult]:
+               threads: int | None = None, stream: tuple[int, ...] = (),
+               steps_per_day: int = 1) -> list[PriceResult]:
     """Price several products on the same assets with the same random numbers.
 
     Arguments as for :func:`price`; ``target_stderr`` applies to the first product;
@@ -695,21 +731,29 @@ def price_many(products: list[Product], market: Market, *, paths: int = DEFAULT_
         source = products[0].source
     for p in products:
         p.check(market, source or p.source)
+    names = products[0].underlyings()
+    market, div_notes = market.dividend_horizon(names, last_date(products, market))
     controls = [p.controls(market) if control else [] for p in products]
-    law_notes = law_notes_for(market, products[0].underlyings())
-    if law_notes:
+    law_notes = [*div_notes, *law_notes_for(market, names),
+                 *model_notes(market, names, steps_per_day)]
+    if not market.lognormal(names):
         dropped = {c.name for cs in controls for c in cs if not c.model_free}
         controls = [[c for c in cs if c.model_free] for cs in controls]
         if dropped:
-            law_notes.append("closed-form control variates that assume normal returns switched "
-                             f"off ({'; '.join(sorted(dropped))})")
-    sim = Simulation(products, market, smp, controls, source)
+            law_notes.append("closed-form control variates that assume lognormal levels "
+                             f"switched off ({'; '.join(sorted(dropped))})")
+    sim = Simulation(products, market, smp, controls, source, steps_per_day)
+    if sim.params is not None and sim.params.local is not None and sim.params.local.floored:
+        lp = sim.params.local
+        law_notes.append(f"local variance floored at a 1% vol at {lp.floored} of {lp.points} "
+                         "points of the table (where Dupire's formula is not positive, mostly "
+                         "far from the money)")
     sim.progress = progress
     sim.threads = None if threads is None else engine_threads(threads)
     notes: list[str] = list(law_notes)
     if sim.params is not None:
         check_lognormal_tails(market, sim.names, sim.params.variance, paths)
-    if law_notes and sim.params is not None:
+    if market.non_normal(names) and sim.params is not None:
         check_law_tails(market, sim.names, sim.params.variance,
                         paths)
     dim = len(sim.names) * sim.steps

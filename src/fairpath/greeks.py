@@ -52,8 +52,10 @@ from fairpath.estimate import (
     Moments,
     Simulation,
     check_law_tails,
+    last_date,
     law_notes_for,
     merge_all,
+    model_notes,
 )
 from fairpath.market import Market
 from fairpath.models import GBM, simulate_log_levels
@@ -164,26 +166,31 @@ def _bump_spot(market: Market, name: str, factor: float) -> Market:
 
 def vol_bump(market: Market, name: str) -> float:
     """The vega bump of an asset: one vol point, or half its lowest pillar vol when that is
-    below two points (so a low vol is bumped relative to its size, never through zero)."""
-    return min(VOL_BUMP, 0.5 * min(market.asset(name).vol.vols))
+    below two points (so a low vol is bumped relative to its size, never through zero); a
+    surface is moved in parallel, every quote by the bump."""
+    a = market.asset(name)
+    low = min(a.vol.vols) if a.surface is None else min(min(r) for r in a.surface.vols)
+    return min(VOL_BUMP, 0.5 * low)
 
 
 def _bump_vol(market: Market, name: str, dv: float) -> Market:
     a = market.asset(name)
     vol = a.vol.shifted(dv)
-    if min(vol.vols) <= 0:
+    lowest = min(vol.vols) if a.surface is None else min(min(r) for r in a.surface.vols) + dv
+    if not lowest > 0:
         raise InputError(f"a vega bump would make {name}'s vol non-positive: its vol is "
-                         f"{min(a.vol.vols):g}", source=market.source, key=f"assets.{name}.vol")
-    return market.with_asset(dataclasses.replace(a, vol=vol))
+                         f"{lowest - dv:g}", source=market.source, key=f"assets.{name}.vol")
+    surface = a.surface.shifted(dv) if a.surface is not None else None
+    return market.with_asset(dataclasses.replace(a, vol=vol, surface=surface))
 
 
 class _Scenarios:
     """The base simulation's grid and normals, re-used under every bumped market."""
 
     def __init__(self, product: Product, base: Market, markets: list[Market], sampler,
-                 source: str | None):
+                 source: str | None, steps_per_day: int = 1):
         self.product = product
-        self.sim = Simulation([product], base, sampler, [[]], source)
+        self.sim = Simulation([product], base, sampler, [[]], source, steps_per_day)
         self.markets = markets
         names = self.sim.names
         dates = self.sim.grid_dates
@@ -191,7 +198,7 @@ class _Scenarios:
         for m in markets:
             times = np.array([max(m.time(d), 0.0) for d in dates]) if dates else np.zeros(0)
             model = GBM.from_market(m, names)
-            params = model.steps(times) if len(times) else None
+            params = model.steps(times, steps_per_day) if len(times) else None
             self.setups.append((m, model.spots, times, params))
 
     def values(self, z: np.ndarray, want_pathwise: bool, want_lr: bool
@@ -246,7 +253,7 @@ def greeks(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
            sampler: str = "sobol", seed: int | None = None, method: str = "auto",
            antithetic: bool = False, replicates: int = DEFAULT_REPLICATES,
            cross_gamma: bool = True, source: str | None = None,
-           stream: tuple[int, ...] = ()) -> GreeksResult:
+           stream: tuple[int, ...] = (), steps_per_day: int = 1) -> GreeksResult:
     """Delta, gamma (and cross-gammas), vega per asset, rho and theta, each with its error.
 
     Parameters
@@ -274,6 +281,8 @@ def greeks(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
     source = source or product.source
     product.check(market, source)
     product = product.struck(market)
+    market, div_notes = market.dividend_horizon(product.underlyings(),
+                                                last_date([product], market))
     smp = make_sampler(sampler, seed=seed, antithetic=antithetic, replicates=replicates,
                        stream_key=stream)
     names = product.underlyings()
@@ -324,24 +333,32 @@ def greeks(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
         scen.append(("t-1d", earlier))
     index = {lab: i for i, (lab, _) in enumerate(scen)}
 
-    runner = _Scenarios(product, market, [m for _, m in scen], smp, source)
+    runner = _Scenarios(product, market, [m for _, m in scen], smp, source, steps_per_day)
     if runner.sim.steps == 0:
         raise InputError("nothing left to simulate: every level the payoff needs is known, so "
                          "the Greeks are those of a fixed amount", source=source)
     use_pathwise = method in ("pathwise", "auto") and product.has_pathwise(market)
     first_var = GBM.from_market(market, names).steps(runner.sim.grid_times[:1]).variance[:, 0]
     odd_laws = market.non_normal(names)
+    lognormal = market.lognormal(names)
     use_lr = (method == "lr" or (method == "auto" and product.payoff_jumps)) and \
-        bool(np.all(first_var > 0)) and product.score_safe() and not odd_laws
+        bool(np.all(first_var > 0)) and product.score_safe() and lognormal
     if method == "lr" and not use_lr:
         notes.append("no likelihood-ratio estimator here (the first step has no variance, the "
                      "payoff uses today's spot directly, or a shock law is not normal, so the "
                      "normal score does not apply): bumps used")
     if odd_laws:
         check_law_tails(market, names, runner.sim.params.variance, paths)
-        notes.extend(law_notes_for(market, names))
-        if use_pathwise:
-            notes.append("pathwise vega needs normal shocks: vega is bumped")
+    notes.extend(div_notes)
+    notes.extend(law_notes_for(market, names))
+    notes.extend(model_notes(market, names, steps_per_day))
+    escrow_or_smile = market.local_vol(names) or any(market.dividend_times(n) for n in names)
+    if use_pathwise and escrow_or_smile:
+        use_pathwise = False
+        notes.append("pathwise estimators need levels proportional to the spot and a flat "
+                     "vol (no surface, no cash dividends): delta and vega are bumped")
+    elif use_pathwise and odd_laws:
+        notes.append("pathwise vega needs normal shocks: vega is bumped")
     if method == "pathwise" and not use_pathwise:
         notes.append(f"no pathwise estimator for {product.kind}: bump-and-revalue used")
 
@@ -350,7 +367,7 @@ def greeks(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
     pw_names: list[str] = []
     n_a = len(names)
     for b in blocks:
-        z = smp.normals([b], n_a, runner.sim.grid_times)
+        z = smp.normals([b], n_a, runner.sim.sim_times)
         v, pw = runner.values(z, use_pathwise, use_lr)
         if pw:
             pw_names = sorted(pw)

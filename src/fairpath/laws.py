@@ -87,8 +87,9 @@ MAX_UNSEEN = 2e-3
 Z_MAX = float(-ndtri(LAW_CLIP))
 #: What a continuously monitored barrier says under a non-normal law.
 BRIDGE_UNDER_LAW = ("between daily closes the barrier's Brownian-bridge crossing probability "
-                    "treats the move within a day as normal (an approximation under a non-normal "
-                    "law)")
+                    "treats the move within a day as lognormal with the at-the-money variance "
+                    "(an approximation under a non-normal law, local volatility or cash "
+                    "dividends)")
 #: Points of the tabulated transform z -> shock.
 TABLE_POINTS = 16385
 #: An empirical law needs at least this many usable closes (about a year of trading days).

@@ -25,6 +25,7 @@ from fairpath.dates import DAY_COUNTS, parse_tenor, year_fraction
 from fairpath.errors import InputError
 from fairpath.inputs import MAX_AMOUNT, Table, did_you_mean, read_toml, show
 from fairpath.laws import NORMAL, Law, parse_law
+from fairpath.surface import VolSurface, parse_surface
 
 #: Tolerance on the smallest eigenvalue of a correlation matrix (rounding in hand-typed files).
 PSD_TOLERANCE = 1e-10
@@ -33,14 +34,6 @@ MAX_VOL = 5.0
 #: Largest absolute rate or dividend yield a market file may give (100%, continuously
 #: compounded): a larger one is a percentage typed as a number.
 MAX_RATE = 1.0
-#: Keys of the format notes that this version does not implement (refused with a clear word
-#: rather than as unknown).
-NOT_SUPPORTED = {
-    "vol_surface": "an implied-volatility surface (local volatility) is not supported by this "
-                   "version; give 'vol' or 'vol_tenors' + 'vols'",
-    "dividends": "discrete cash dividends are not supported by this version; give a continuous "
-                 "'dividend_yield'",
-}
 
 
 # ---------------------------------------------------------------------------------------------
@@ -187,8 +180,19 @@ class Asset:
     vol: VolCurve
     dividend_yield: float = 0.0
     law: Law = NORMAL
+    #: an implied-volatility surface (local volatility): ``vol`` is then its at-the-money term
+    #: structure (see :mod:`fairpath.surface`)
+    surface: VolSurface | None = None
+    #: discrete cash dividends ``(ex_date, amount)``, escrowed (see :class:`Market`)
+    dividends: tuple[tuple[date, float], ...] = ()
 
     def __post_init__(self):
+        divs = tuple(sorted((d, float(x)) for d, x in self.dividends))
+        object.__setattr__(self, "dividends", divs)
+        for d, x in divs:
+            if not (math.isfinite(x) and x > 0):
+                raise InputError(f"a dividend amount must be positive, got {x} on {d}",
+                                 key=f"assets.{self.name}.dividends")
         if not (np.isfinite(self.spot) and self.spot > 0):
             raise InputError(f"spot must be positive, got {self.spot}",
                              key=f"assets.{self.name}.spot")
@@ -252,11 +256,84 @@ class Market:
         return self.discount.df(self.time(d))
 
     def forward(self, name: str, t) -> float | np.ndarray:
-        """Forward level of an asset at time ``t`` (years)."""
+        """Forward level of an asset at time ``t`` (years): the escrowed level's forward plus
+        the value at ``t`` of the cash dividends still to come (see :meth:`escrow`)."""
+        f = np.asarray(self.x_forward(name, t)) + np.asarray(self.escrow(name, t))
+        return float(f) if f.ndim == 0 else f
+
+    def dividend_times(self, name: str) -> list[tuple[float, float]]:
+        """``(t, amount)`` of the asset's cash dividends with an ex-date after the valuation
+        date (earlier ones are past and ignored)."""
+        a = self.asset(name)
+        return [(self.time(d), x) for d, x in a.dividends if d > self.valuation_date]
+
+    def escrow(self, name: str, t) -> float | np.ndarray:
+        """``D(t) = sum over ex-dates t_i > t of amount_i DF(t_i) / DF(t)``: the value at ``t``
+        of the cash dividends still to come. Escrowed-dividend model: the level is
+        ``S(t) = X(t) + D(t)`` with ``X`` the diffusing (escrowed) part, so on an ex-date the
+        level drops by exactly the amount and never goes below it."""
+        t = np.asarray(t, dtype=float)
+        out = np.zeros_like(t)
+        divs = self.dividend_times(name)
+        if divs:
+            df_t = self.discount.df(t)
+            for ti, x in divs:
+                out = out + np.where(ti > t, x * float(self.discount.df(ti)) / df_t, 0.0)
+        return float(out) if out.ndim == 0 else out
+
+    def escrowed_spot(self, name: str) -> float:
+        """``X(0) = S(0) - D(0)``: the spot less the present value of the dividends to come."""
+        return self.asset(name).spot - float(self.escrow(name, 0.0))
+
+    def x_forward(self, name: str, t) -> float | np.ndarray:
+        """Forward of the escrowed level ``X`` (the whole level without cash dividends)."""
         a = self.asset(name)
         t = np.asarray(t, dtype=float)
-        f = a.spot * np.exp(-a.dividend_yield * t) / self.discount.df(t)
+        f = self.escrowed_spot(name) * np.exp(-a.dividend_yield * t) / self.discount.df(t)
         return float(f) if f.ndim == 0 else f
+
+    def lognormal(self, names) -> bool:
+        """Are the named assets plain geometric Brownian motions (normal shocks, no surface,
+        no cash dividends to come), the model every closed form assumes?"""
+        for n in names:
+            a = self.asset(n)
+            if not a.law.is_normal or a.surface is not None or self.dividend_times(n):
+                return False
+        return True
+
+    def local_vol(self, names) -> tuple[str, ...]:
+        """The named assets priced with local volatility (they have a surface)."""
+        return tuple(n for n in names if self.asset(n).surface is not None)
+
+    def with_flat_vol(self, names=None) -> Market:
+        """The market with each surface replaced by its at-the-money term structure."""
+        names = self.asset_names if names is None else tuple(names)
+        return dataclasses.replace(self, assets=tuple(
+            dataclasses.replace(a, surface=None) if a.name in names else a
+            for a in self.assets))
+
+    def dividend_horizon(self, names, last: date) -> tuple[Market, list[str]]:
+        """The market with the named assets' cash dividends outside ``(valuation, last]``
+        dropped (past, or after the last date a product needs), and notes saying so."""
+        notes, assets = [], []
+        for a in self.assets:
+            if a.name not in names or not a.dividends:
+                assets.append(a)
+                continue
+            keep = []
+            for d, x in a.dividends:
+                if d <= self.valuation_date:
+                    notes.append(f"{a.name}'s dividend of {x:g} on {d} is on or before the "
+                                 f"valuation date: ignored")
+                elif d > last:
+                    notes.append(f"{a.name}'s dividend of {x:g} on {d} is after the last date "
+                                 f"the product needs ({last}): ignored")
+                else:
+                    keep.append((d, x))
+            assets.append(dataclasses.replace(a, dividends=tuple(keep)))
+        if not notes:
+            return self, []
+        return dataclasses.replace(self, assets=tuple(assets)), notes
 
     def correlation_matrix(self, names, *, source: str | None = None,
                            key: str | None = None) -> np.ndarray:
@@ -355,11 +432,15 @@ def load_market(path: str | Path) -> Market:
             raise assets_tab.error(None, f"asset name {show(name)} must be printable, not "
                                    "blank, without leading or trailing spaces")
         a = assets_tab.table(name)
-        for k, why in NOT_SUPPORTED.items():
-            if k in a.data:
-                raise a.error(k, why)
         spot = a.number("spot", positive=True, limit=MAX_AMOUNT)
-        if a.has("vol"):
+        surface = None
+        if a.has("vol_surface"):
+            if a.has("vol") or a.has("vol_tenors") or a.has("vols"):
+                raise a.error("vol_surface", "give either a vol_surface or 'vol' ('vol_tenors' "
+                              "+ 'vols'), not both: the surface replaces the vol")
+            surface = parse_surface(a.table("vol_surface"), valuation, day_count)
+            vol = VolCurve.flat(1.0)  # replaced below by the surface's at-the-money vols
+        elif a.has("vol"):
             if a.has("vol_tenors") or a.has("vols"):
                 raise a.error("vol", "give either 'vol' or 'vol_tenors' + 'vols', not both")
             vol = VolCurve.flat(_vol(a, "vol", a.raw("vol")))
@@ -382,8 +463,15 @@ def load_market(path: str | Path) -> Market:
         if a.has("law"):
             law = parse_law(a.raw("law"), base_dir=Path(src).parent, source=src,
                             key=a.key("law"))
+        dividends = _dividends(a, valuation)
         a.finish()
-        assets.append(Asset(name, spot, vol, q, law))
+        if surface is not None and not law.is_normal:
+            raise a.error("law", "a non-normal law and a volatility surface cannot be combined "
+                          "(local volatility steps with normal shocks)")
+        asset = Asset(name, spot, vol, q, law, dividends=dividends)
+        if surface is not None:
+            asset = attach_surface(asset, surface, curve, source=src, key=a.key("vol_surface"))
+        assets.append(asset)
 
     corr = None
     ctab = top.table("correlation", None)
@@ -412,8 +500,15 @@ def load_market(path: str | Path) -> Market:
         corr = Correlation(tuple(names), tuple(tuple(float(x) for x in r) for r in mat))
         ctab.finish()
     top.finish()
-    return Market(valuation_date=valuation, currency=currency, discount=curve,
-                  assets=tuple(assets), day_count=day_count, correlation=corr, source=src)
+    market = Market(valuation_date=valuation, currency=currency, discount=curve,
+                    assets=tuple(assets), day_count=day_count, correlation=corr, source=src)
+    for a in market.assets:
+        if market.dividend_times(a.name) and not market.escrowed_spot(a.name) > 0:
+            raise InputError(f"the dividends to come are worth {market.escrow(a.name, 0.0):g} "
+                             f"today, not less than the spot {a.spot:g}: a dividend larger than "
+                             "the level it applies to", source=src,
+                             key=f"assets.{a.name}.dividends")
+    return market
 
 
 def _rate(tab: Table, name: str, value) -> float:
@@ -452,3 +547,45 @@ def validate_correlation(mat: np.ndarray, *, source: str | None = None,
     if smallest < -PSD_TOLERANCE:
         raise InputError(f"not positive semi-definite (smallest eigenvalue {smallest:.6g})",
                          source=source, key=key)
+
+
+def _dividends(a: Table, valuation: date) -> tuple[tuple[date, float], ...]:
+    """``dividends = [{ ex_date = ..., amount = ... }, ...]`` of one asset."""
+    raw = a.raw("dividends", None)
+    if raw is None:
+        return ()
+    if not isinstance(raw, list) or not raw:
+        raise a.error("dividends", "expected a list of { ex_date = ..., amount = ... }")
+    out = []
+    for i, item in enumerate(raw):
+        if not isinstance(item, dict):
+            raise a.error(f"dividends[{i}]", f"expected {{ ex_date = ..., amount = ... }}, got "
+                          f"{show(item)}")
+        t = Table(item, a.source, a.key(f"dividends[{i}]"))
+        d = t.date("ex_date")
+        x = t.number("amount", positive=True, limit=MAX_AMOUNT)
+        t.finish()
+        out.append((d, x))
+    dates = [d for d, _ in out]
+    if len(set(dates)) != len(dates):
+        dup = next(d for d in dates if dates.count(d) > 1)
+        raise a.error("dividends", f"two dividends on {dup}: give their sum once")
+    return tuple(sorted(out))
+
+
+def attach_surface(asset: Asset, surface: VolSurface, curve: DiscountCurve, *,
+                   source: str | None = None, key: str | None = None) -> Asset:
+    """The asset with a surface: moneyness against the escrowed level's forward, arbitrage
+    checked (refused naming where), and ``vol`` set to the at-the-money term structure."""
+    q = asset.dividend_yield
+    s = surface.attach(lambda t: math.exp(-q * t) / float(curve.df(t)))
+    try:
+        s.check(source=source, key=key)
+    except InputError as exc:
+        raise InputError(exc.problem, source=source, key=key) from None
+    atm = s.atm_vols()
+    w = [v * v * t for v, t in zip(atm, s.times, strict=True)]
+    if any(b < a - 1e-14 for a, b in zip(w, w[1:], strict=False)):
+        raise InputError("calendar arbitrage at the money: total variance falls between tenors",
+                         source=source, key=key)
+    return dataclasses.replace(asset, surface=s, vol=VolCurve(tuple(s.times), atm))

@@ -18,11 +18,13 @@ still the market's.
 
 from __future__ import annotations
 
+import dataclasses
 from dataclasses import dataclass
 
 import numpy as np
 
-from fairpath.kernels import log_paths
+from fairpath.errors import InputError
+from fairpath.kernels import local_vol_paths, log_paths
 from fairpath.laws import Law
 from fairpath.market import Market, integrate_vol_product
 
@@ -39,6 +41,35 @@ class StepParameters:
     laws: tuple[Law, ...] | None = None
     #: (steps, assets, assets): factor of each step's correlation (copula), with ``laws``
     corr_factor: np.ndarray | None = None
+    #: log of each asset's simulated level at time 0 (the escrowed spot with cash dividends)
+    log_start: np.ndarray | None = None
+    #: (assets, steps): value of the dividends still to come at each grid time (escrow), added
+    #: back to the simulated level; None without cash dividends
+    escrow: np.ndarray | None = None
+    #: the times the sampler draws for (the grid, or a finer one under local volatility)
+    fine_times: np.ndarray | None = None
+    #: local-volatility stepping (see :class:`LocalParams`), or None
+    local: LocalParams | None = None
+
+
+@dataclass(frozen=True, slots=True)
+class LocalParams:
+    """Log-Euler stepping under local volatility on a fine grid (see kernels.local_vol_paths).
+
+    ``grid_cols`` are the fine steps that end on the grid's dates; ``floored`` counts the
+    local-variance table points floored (see :mod:`fairpath.surface`)."""
+
+    dt: np.ndarray
+    log_fwd: np.ndarray
+    table: np.ndarray
+    y0: np.ndarray
+    dy: np.ndarray
+    gbm_var: np.ndarray
+    is_lv: np.ndarray
+    corr: np.ndarray
+    grid_cols: np.ndarray
+    floored: int
+    points: int
 
 
 @dataclass(frozen=True, slots=True)
@@ -81,8 +112,58 @@ class GBM:
         """Are all the assets' shocks normal (exact GBM steps of any length)?"""
         return all(law.is_normal for law in self.laws)
 
-    def steps(self, times: np.ndarray) -> StepParameters:
-        """Exact step parameters on the grid ``times`` (strictly increasing, all > 0)."""
+    def steps(self, times: np.ndarray, steps_per_day: int = 1) -> StepParameters:
+        """Step parameters on the grid ``times`` (strictly increasing, all > 0): exact GBM
+        (or law) steps, or, when an asset has a surface, log-Euler steps under local
+        volatility on the grid cut into ``steps_per_day`` pieces."""
+        p = self._steps(times)
+        log_start = np.log([self.market.escrowed_spot(n) for n in self.names])
+        escrow = None
+        if any(self.market.dividend_times(n) for n in self.names):
+            escrow = np.stack([np.asarray(self.market.escrow(n, np.asarray(times)), dtype=float)
+                               for n in self.names])
+        local = None
+        fine = np.asarray(times, dtype=float)
+        if self.market.local_vol(self.names):
+            local, fine = self._local(np.asarray(times, dtype=float), steps_per_day)
+        return dataclasses.replace(p, log_start=log_start, escrow=escrow, fine_times=fine,
+                                   local=local)
+
+    def _local(self, times: np.ndarray, sub: int) -> tuple[LocalParams, np.ndarray]:
+        from fairpath.surface import Y_POINTS
+
+        if isinstance(sub, bool) or not isinstance(sub, int) or sub < 1:
+            raise InputError(f"must be a positive integer, got {sub!r}", key="steps_per_day")
+        edges = np.concatenate([[0.0], times])
+        pieces = [np.linspace(a, b, sub + 1)[1:] for a, b in
+                  zip(edges[:-1], edges[1:], strict=True)]
+        fine = np.concatenate(pieces) if pieces else edges[1:]
+        starts = np.concatenate([[0.0], fine[:-1]])
+        dt = fine - starts
+        n_a, n_f = len(self.names), len(fine)
+        log_fwd = np.stack([np.log(np.asarray(self.market.x_forward(n, np.concatenate(
+            [[0.0], fine])), dtype=float)) for n in self.names])
+        table = np.zeros((n_a, n_f, Y_POINTS))
+        y0, dy = np.zeros(n_a), np.ones(n_a)
+        gbm_var = np.zeros((n_a, n_f))
+        is_lv = np.zeros(n_a, dtype=bool)
+        floored = points = 0
+        for i, n in enumerate(self.names):
+            a = self.market.asset(n)
+            if a.surface is not None:
+                lv = a.surface.local_variance_table(starts)
+                table[i], y0[i], dy[i] = lv.variance, lv.y0, lv.dy
+                is_lv[i] = True
+                floored += lv.floored
+                points += lv.points
+            else:
+                gbm_var[i] = integrate_vol_product(a.vol, a.vol, starts, fine)
+        corr = psd_cholesky(self.correlation)
+        cols = np.arange(sub - 1, n_f, sub)
+        return LocalParams(dt, log_fwd, table, y0, dy, gbm_var, is_lv, corr, cols, floored,
+                           points), fine
+
+    def _steps(self, times: np.ndarray) -> StepParameters:
         times = np.asarray(times, dtype=float)
         t0 = np.concatenate([[0.0], times[:-1]])
         n_a, n_s = len(self.names), len(times)
@@ -95,8 +176,8 @@ class GBM:
                 cov[:, i, j] = c
                 cov[:, j, i] = c
         var = np.stack([cov[:, i, i] for i in range(n_a)])
-        logf = np.stack([np.log(self.market.forward(n, np.concatenate([[0.0], times])))
-                         for n in self.names])
+        logf = np.stack([np.log(np.asarray(self.market.x_forward(n, np.concatenate(
+            [[0.0], times])), dtype=float)) for n in self.names])
         factor = np.stack([psd_cholesky(cov[k]) for k in range(n_s)])
         if self.normal:
             return StepParameters(times, np.diff(logf, axis=1) - 0.5 * var, factor, var)
@@ -135,12 +216,24 @@ def simulate_log_levels(params: StepParameters, spots: np.ndarray, z: np.ndarray
     arithmetic is the same whatever the number of paths in the chunk (bit-identical results for
     any chunk size or number of threads).
     """
-    if params.laws is not None:
-        return _simulate_with_laws(params, spots, z)
-    return log_paths(z, params.drift, params.factor, np.log(spots))
+    start = params.log_start if params.log_start is not None else np.log(spots)
+    if params.local is not None:
+        lp = params.local
+        x = local_vol_paths(z, lp.corr, lp.dt, lp.log_fwd, lp.table, lp.y0, lp.dy,
+                            lp.gbm_var, lp.is_lv, start)
+        x = np.ascontiguousarray(x[:, :, lp.grid_cols])
+    elif params.laws is not None:
+        x = _simulate_with_laws(params, start, z)
+    else:
+        x = log_paths(z, params.drift, params.factor, start)
+    if params.escrow is not None:  # the level is the escrowed part plus the dividends to come
+        for a in range(x.shape[1]):
+            if np.any(params.escrow[a]):
+                x[:, a, :] = np.log(np.exp(x[:, a, :]) + params.escrow[a][None, :])
+    return x
 
 
-def _simulate_with_laws(params: StepParameters, spots: np.ndarray, z: np.ndarray) -> np.ndarray:
+def _simulate_with_laws(params: StepParameters, start: np.ndarray, z: np.ndarray) -> np.ndarray:
     """Log levels when some shock law is not normal: correlated normals (Gaussian copula), each
     asset's inverse transform, scaled by the step's standard deviation, plus the drift."""
     n_a = z.shape[1]
@@ -155,5 +248,5 @@ def _simulate_with_laws(params: StepParameters, spots: np.ndarray, z: np.ndarray
         acc += params.drift[a]
         x[:, a, :] = acc
     np.cumsum(x, axis=2, out=x)
-    x += np.log(spots)[None, :, None]
+    x += start[None, :, None]
     return x

@@ -78,6 +78,8 @@ class QuoteCheck:
     other_law: str | None = None
     other_price: float | None = None
     other_stderr: float | None = None
+    #: with a volatility surface: the price with its at-the-money term structure instead
+    flat_vol_price: float | None = None
 
     def to_dict(self) -> dict:
         d = {k: getattr(self, k) for k in ("product", "quote", "price", "stderr", "low", "high",
@@ -88,6 +90,8 @@ class QuoteCheck:
         if self.other_law is not None:
             d.update(other_law=self.other_law, other_price=self.other_price,
                      other_stderr=self.other_stderr)
+        if self.flat_vol_price is not None:
+            d["flat_vol_price"] = self.flat_vol_price
         return d
 
     def _repr_html_(self) -> str:
@@ -100,10 +104,12 @@ def _with_vols(market: Market, names, shift: float | None = None, flat: float | 
     for n in names:
         a = market.asset(n)
         vol = VolCurve.flat(flat) if flat is not None else a.vol.shifted(shift)
-        if min(vol.vols) <= 0:
-            raise InputError(f"the vol band would make {n}'s vol non-positive "
-                             f"({min(vol.vols):g})", key="--vol-band")
-        market = market.with_asset(dataclasses.replace(a, vol=vol))
+        surface = None if flat is not None or a.surface is None else a.surface.shifted(shift)
+        low = min(vol.vols) if surface is None else min(min(r) for r in surface.vols)
+        if low <= 0:
+            raise InputError(f"the vol band would make {n}'s vol non-positive ({low:g})",
+                             key="--vol-band")
+        market = market.with_asset(dataclasses.replace(a, vol=vol, surface=surface))
     return market
 
 
@@ -208,7 +214,8 @@ def _extremum_brackets(f, grid: list[float], fs: list[float]) -> list[tuple[floa
 def check_quote(product: Product, market: Market, quote: float, *, vol_band: float = 0.01,
                 tolerance: float = 0.0, paths: int = DEFAULT_PATHS, sampler: str = "sobol",
                 seed: int | None = None, implied: bool = True, label: str = "",
-                source: str | None = None, compare_law: Law | None = None) -> QuoteCheck:
+                source: str | None = None, compare_law: Law | None = None,
+                steps_per_day: int = 1) -> QuoteCheck:
     """Check one quote (see the module notes).
 
     ``compare_law``: also price the product with this shock law for every asset it uses (same
@@ -226,7 +233,8 @@ def check_quote(product: Product, market: Market, quote: float, *, vol_band: flo
     """
     if not (isinstance(vol_band, int | float) and vol_band >= 0 and math.isfinite(vol_band)):
         raise InputError(f"must be a non-negative number, got {vol_band!r}", key="--vol-band")
-    settings = dict(paths=paths, sampler=sampler, seed=seed, source=source)
+    settings = dict(paths=paths, sampler=sampler, seed=seed, source=source,
+                    steps_per_day=steps_per_day)
     names = product.underlyings()
     base = price(product, market, **settings)
     prices = [base.price]
@@ -252,6 +260,8 @@ def check_quote(product: Product, market: Market, quote: float, *, vol_band: flo
         except InputError as exc:
             note = (note + "; " if note else "") + f"no fair coupon: {exc.problem}"
     other = {}
+    if market.local_vol(names):  # how much of the value is the smile
+        other["flat_vol_price"] = price(product, market.with_flat_vol(names), **settings).price
     if compare_law is not None:
         alt = price(product, market.with_law(compare_law, names), **settings)
         other = dict(other_law=compare_law.describe(), other_price=alt.price,
@@ -351,9 +361,11 @@ def _fmt(v, spec: str = ".6g") -> str:
 def _table_html(checks: list[QuoteCheck], attrs: str = "") -> str:
     """The verdicts as an HTML table (the report's and the notebook's)."""
     alt = next((c.other_law for c in checks if c.other_law is not None), None)
+    smile = any(c.flat_vol_price is not None for c in checks)
     head = ("product", "quote", "price", "stderr", "low", "high", "difference", "z",
             "verdict", "implied vol", "coupon / fair coupon",
-            *((f"price under the {alt} law",) if alt else ()), "note")
+            *((f"price under the {alt} law",) if alt else ()),
+            *(("price with at-the-money vols (no smile)",) if smile else ()), "note")
     body = []
     for c in checks:
         if c.status != "ok":
@@ -363,9 +375,10 @@ def _table_html(checks: list[QuoteCheck], attrs: str = "") -> str:
             continue
         cpn = "" if c.coupon is None else f"{c.coupon:.4%} / {_fmt(c.fair_coupon, '.4%')}"
         law_col = (f"{_fmt(c.other_price)} ({_fmt(c.other_stderr, '.3g')})",) if alt else ()
+        flat_col = (_fmt(c.flat_vol_price),) if smile else ()
         cells = (c.product, _fmt(c.quote), _fmt(c.price), _fmt(c.stderr, ".3g"), _fmt(c.low),
                  _fmt(c.high), _fmt(c.difference, ".4g"), _fmt(c.z, ".2f"), c.verdict,
-                 _fmt(c.implied_vol, ".4%"), cpn, *law_col, c.implied_vol_note)
+                 _fmt(c.implied_vol, ".4%"), cpn, *law_col, *flat_col, c.implied_vol_note)
         style = f" style='color:{COLOURS[c.verdict]}'"
         body.append("<tr>" + "".join(
             f"<td{style if i == 8 else ''}>{html.escape(str(v))}</td>"

@@ -93,7 +93,7 @@ def numeric_keys(product: Product) -> list[str]:
 def solve(product: Product, market: Market, key: str, target: float, *,
           paths: int = DEFAULT_PATHS, sampler: str = "sobol", seed: int | None = None,
           antithetic: bool = False, control: bool = True, replicates: int = 16,
-          source: str | None = None) -> SolveResult:
+          source: str | None = None, steps_per_day: int = 1) -> SolveResult:
     """The value of the numeric product key ``key`` at which the price equals ``target``.
 
     Examples
@@ -115,7 +115,8 @@ def solve(product: Product, market: Market, key: str, target: float, *,
     if not (isinstance(target, int | float) and math.isfinite(target)):
         raise InputError(f"must be a finite number, got {target!r}", key="--target")
     settings = dict(paths=paths, sampler=sampler, seed=seed, antithetic=antithetic,
-                    control=control, replicates=replicates, source=source)
+                    control=control, replicates=replicates, source=source,
+                    steps_per_day=steps_per_day)
 
     def with_value(x: float) -> Product:
         return dataclasses.replace(product, **{key: x})

@@ -195,7 +195,7 @@ class Asian(Product):
     def conditional(self, market: Market) -> bool:
         """Is the arithmetic average integrated along the geometric average analytically?
         (Fixed strike, normal shocks, some future fixing with variance.)"""
-        if self.average != "arithmetic" or self.floating or market.non_normal((self.asset,)):
+        if self.average != "arithmetic" or self.floating or not market.lognormal((self.asset,)):
             return False
         t = [market.time(d) for d in self.future_fixings]
         return bool(t) and max(t) > 0 and float(market.asset(self.asset).vol.variance(

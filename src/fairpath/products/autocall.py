@@ -302,7 +302,7 @@ class Autocallable(Product):
                        + (f", {self.coupons_owed} coupon(s) owed" if self.coupons_owed else ""))
         if self.breached_now(market):
             out.append("the protection barrier is already breached (knocked in)")
-        elif self.protection_monitoring == "continuous" and market.non_normal(self.assets):
+        elif self.protection_monitoring == "continuous" and not market.lognormal(self.assets):
             out.append(BRIDGE_UNDER_LAW)
         return tuple(out)
 

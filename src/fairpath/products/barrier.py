@@ -137,7 +137,7 @@ class Barrier(OneAssetAtExpiry):
     def notes(self, market: Market) -> tuple[str, ...]:
         spot = market.asset(self.asset).spot
         if not self.breached(spot):
-            if self.monitoring == "continuous" and market.non_normal((self.asset,)):
+            if self.monitoring == "continuous" and not market.lognormal((self.asset,)):
                 return (BRIDGE_UNDER_LAW,)
             return ()
         side = "at or below" if self.direction == "down" else "at or above"

@@ -259,7 +259,7 @@ class Product:
     def reference(self, market: Market) -> float | None:
         """The closed form when it applies to this market: none when one of the product's
         assets has a non-normal shock law (the formulas assume normal returns)."""
-        if market.non_normal(self.underlyings()):
+        if not market.lognormal(self.underlyings()):
             return None
         return self.closed_form(market)
 
@@ -277,7 +277,7 @@ def level_sensitivities(ps: PathSet) -> tuple[np.ndarray, np.ndarray | None]:
     """
     d_spot = ps.levels / ps.spots[None, :, None]
     vols = [ps.market.asset(n).vol for n in ps.names]
-    if not all(v.is_flat and v.vols[0] > 0 for v in vols) or ps.market.non_normal(ps.names):
+    if not all(v.is_flat and v.vols[0] > 0 for v in vols) or not ps.market.lognormal(ps.names):
         return d_spot, None
     t = np.array([max(ps.market.time(d), 0.0) for d in ps.dates])
     sig = np.array([v.vols[0] for v in vols])[None, :, None]

@@ -211,7 +211,7 @@ class Basket(Product):
         a non-normal law, nothing left to simulate, or no variance left to integrate)."""
         n = len(self.assets)
         t = market.time(self.expiry)
-        if n < 2 or t <= 0 or market.non_normal(self.assets):
+        if n < 2 or t <= 0 or not market.lognormal(self.assets):
             return None
         if self.combine == "average" and not self.basket_weights[-1] > 0:
             return None  # the last asset does not enter the basket
