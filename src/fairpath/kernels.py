@@ -317,13 +317,14 @@ def extreme_given_last(others: np.ndarray, mu: np.ndarray, var: float, k: float,
 
 
 @njit(cache=True, nogil=True)
-def _local_vol_paths(z, corr, dt, log_fwd, lv_var, lv_y0, lv_dy, gbm_var, is_lv, log_x0):
+def _local_vol_paths(z, corr, log_fwd, lv_sd, lv_y0, lv_inv_dy, gbm_sd, is_lv, log_x0):
     """Log-Euler steps of each asset's log-level x (the escrowed level when it pays cash
-    dividends), in place in ``z``: ``x_{k+1} = x_k + log F_{k+1} - log F_k - v/2 + sqrt(v) e``
-    with ``e`` the correlated normal and ``v`` the step's variance: the local variance at
-    ``(t_k, y = x_k - log F_k)`` times the step, or the integrated GBM variance."""
+    dividends), in place in ``z``: ``x_{k+1} = x_k + log F_{k+1} - log F_k - s^2/2 + s e``
+    with ``e`` the correlated normal and ``s`` the step's standard deviation: the local vol at
+    ``(t_k, y = x_k - log F_k)`` times the root of the step (tabulated as such), or the GBM
+    step's."""
     n, n_a, n_s = z.shape
-    n_y = lv_var.shape[2]
+    last = lv_sd.shape[2] - 1
     e = np.empty(n_a)
     x = np.empty(n_a)
     for p in range(n):
@@ -337,41 +338,40 @@ def _local_vol_paths(z, corr, dt, log_fwd, lv_var, lv_y0, lv_dy, gbm_var, is_lv,
                 e[a] = acc
             for a in range(n_a):
                 if is_lv[a]:
-                    y = x[a] - log_fwd[a, k]
-                    u = (y - lv_y0[a]) / lv_dy[a]
+                    u = (x[a] - log_fwd[a, k] - lv_y0[a]) * lv_inv_dy[a]
                     if u <= 0.0:
-                        var = lv_var[a, k, 0]
-                    elif u >= n_y - 1:
-                        var = lv_var[a, k, n_y - 1]
+                        sd = lv_sd[a, k, 0]
+                    elif u >= last:
+                        sd = lv_sd[a, k, last]
                     else:
                         i = int(u)
                         f = u - i
-                        var = lv_var[a, k, i] * (1.0 - f) + lv_var[a, k, i + 1] * f
-                    v = var * dt[k]
+                        sd = lv_sd[a, k, i] + (lv_sd[a, k, i + 1] - lv_sd[a, k, i]) * f
                 else:
-                    v = gbm_var[a, k]
-                x[a] += log_fwd[a, k + 1] - log_fwd[a, k] - 0.5 * v + np.sqrt(v) * e[a]
+                    sd = gbm_sd[a, k]
+                x[a] += log_fwd[a, k + 1] - log_fwd[a, k] - 0.5 * sd * sd + sd * e[a]
                 z[p, a, k] = x[a]
 
 
-def local_vol_paths(z: np.ndarray, corr: np.ndarray, dt: np.ndarray, log_fwd: np.ndarray,
-                    lv_var: np.ndarray, lv_y0: np.ndarray, lv_dy: np.ndarray,
-                    gbm_var: np.ndarray, is_lv: np.ndarray, log_x0: np.ndarray) -> np.ndarray:
-    """Log-levels on the grid under local volatility (see :func:`_local_vol_paths`), in place.
+def local_vol_paths(z: np.ndarray, corr: np.ndarray, log_fwd: np.ndarray, lv_sd: np.ndarray,
+                    lv_y0: np.ndarray, lv_dy: np.ndarray, gbm_sd: np.ndarray,
+                    is_lv: np.ndarray, log_x0: np.ndarray) -> np.ndarray:
+    """Log-levels on the fine grid under local volatility (see :func:`_local_vol_paths`), in
+    place in ``z`` (paths, assets, steps).
 
     ``corr`` is the lower-triangular factor of the assets' correlation; ``log_fwd`` (assets,
     steps + 1) the log forward of the simulated level at the grid's start and every step;
-    ``lv_var`` (assets, steps, y points) each local-vol asset's table on a uniform grid of
-    forward log-moneyness from ``lv_y0`` by ``lv_dy`` (linear interpolation, flat beyond)."""
+    ``lv_sd`` (assets, steps, y points) each local-vol asset's step standard deviation (local
+    vol times the root of the step) on a uniform grid of forward log-moneyness from ``lv_y0``
+    by ``lv_dy`` (linear interpolation, flat beyond); ``gbm_sd`` (assets, steps) the others'."""
     if not (z.flags.c_contiguous and z.dtype == np.float64):
         z = np.ascontiguousarray(z, dtype=np.float64)
     _local_vol_paths(z, np.ascontiguousarray(corr, dtype=np.float64),
-                     np.ascontiguousarray(dt, dtype=np.float64),
                      np.ascontiguousarray(log_fwd, dtype=np.float64),
-                     np.ascontiguousarray(lv_var, dtype=np.float64),
+                     np.ascontiguousarray(lv_sd, dtype=np.float64),
                      np.ascontiguousarray(lv_y0, dtype=np.float64),
-                     np.ascontiguousarray(lv_dy, dtype=np.float64),
-                     np.ascontiguousarray(gbm_var, dtype=np.float64),
+                     np.ascontiguousarray(1.0 / np.asarray(lv_dy, dtype=np.float64)),
+                     np.ascontiguousarray(gbm_sd, dtype=np.float64),
                      np.ascontiguousarray(is_lv, dtype=np.bool_),
                      np.ascontiguousarray(log_x0, dtype=np.float64))
     return z

@@ -61,10 +61,10 @@ class LocalParams:
 
     dt: np.ndarray
     log_fwd: np.ndarray
-    table: np.ndarray
+    table: np.ndarray  # (assets, steps, y points): step standard deviation
     y0: np.ndarray
     dy: np.ndarray
-    gbm_var: np.ndarray
+    gbm_var: np.ndarray  # (assets, steps): the GBM assets' step standard deviation
     is_lv: np.ndarray
     corr: np.ndarray
     grid_cols: np.ndarray
@@ -151,13 +151,15 @@ class GBM:
         for i, n in enumerate(self.names):
             a = self.market.asset(n)
             if a.surface is not None:
-                lv = a.surface.local_variance_table(starts)
-                table[i], y0[i], dy[i] = lv.variance, lv.y0, lv.dy
+                lv = local_table(a.surface, starts)
+                # tabulated as the step's standard deviation: local vol times sqrt(dt)
+                table[i] = np.sqrt(lv.variance * dt[:, None])
+                y0[i], dy[i] = lv.y0, lv.dy
                 is_lv[i] = True
                 floored += lv.floored
                 points += lv.points
             else:
-                gbm_var[i] = integrate_vol_product(a.vol, a.vol, starts, fine)
+                gbm_var[i] = np.sqrt(integrate_vol_product(a.vol, a.vol, starts, fine))
         corr = psd_cholesky(self.correlation)
         cols = np.arange(sub - 1, n_f, sub)
         return LocalParams(dt, log_fwd, table, y0, dy, gbm_var, is_lv, corr, cols, floored,
@@ -219,8 +221,8 @@ def simulate_log_levels(params: StepParameters, spots: np.ndarray, z: np.ndarray
     start = params.log_start if params.log_start is not None else np.log(spots)
     if params.local is not None:
         lp = params.local
-        x = local_vol_paths(z, lp.corr, lp.dt, lp.log_fwd, lp.table, lp.y0, lp.dy,
-                            lp.gbm_var, lp.is_lv, start)
+        x = local_vol_paths(z, lp.corr, lp.log_fwd, lp.table, lp.y0, lp.dy, lp.gbm_var,
+                            lp.is_lv, start)
         x = np.ascontiguousarray(x[:, :, lp.grid_cols])
     elif params.laws is not None:
         x = _simulate_with_laws(params, start, z)
@@ -250,3 +252,18 @@ def _simulate_with_laws(params: StepParameters, start: np.ndarray, z: np.ndarray
     np.cumsum(x, axis=2, out=x)
     x += start[None, :, None]
     return x
+
+
+_TABLES: dict = {}
+
+
+def local_table(surface, starts: np.ndarray):
+    """:meth:`VolSurface.local_variance_table` on ``starts``, kept for reuse (the same surface
+    and grid recur across assets, bumped scenarios and repeated pricings)."""
+    key = (surface.times, surface.strikes, surface.vols, surface.fwd_ratio, starts.tobytes())
+    table = _TABLES.get(key)
+    if table is None:
+        if len(_TABLES) > 32:
+            _TABLES.clear()
+        table = _TABLES[key] = surface.local_variance_table(starts)
+    return table

@@ -319,3 +319,30 @@ def parse_surface(tab, valuation, day_count: str) -> VolSurface:
         return VolSurface(tuple(times), tuple(strikes), tuple(vols), label=tab.prefix)
     except InputError as exc:
         raise InputError(exc.problem, source=tab.source, key=tab.prefix) from None
+
+
+def ssvi_total_variance(theta, k, rho: float, eta: float, gamma: float):
+    """SSVI total variance with the power-law ``phi(theta) = eta / (theta^gamma (1 +
+    theta)^(1 - gamma))``: ``w = theta / 2 (1 + rho phi k + sqrt((phi k + rho)^2 + 1 - rho^2))``
+    at forward log-moneyness ``k`` and at-the-money total variance ``theta``. Free of static
+    arbitrage when ``eta (1 + |rho|) <= 2`` and ``0 < gamma <= 1/2`` (J. Gatheral and A.
+    Jacquier, "Arbitrage-free SVI volatility surfaces", Quantitative Finance 14(1), 2014,
+    Theorem 4.2 and Remark 4.4). Used to build invented, arbitrage-free example surfaces."""
+    theta = np.asarray(theta, dtype=float)
+    k = np.asarray(k, dtype=float)
+    phi = eta / (theta**gamma * (1.0 + theta) ** (1.0 - gamma))
+    return theta / 2.0 * (1.0 + rho * phi * k + np.sqrt((phi * k + rho) ** 2 + 1.0 - rho**2))
+
+
+def ssvi_surface(times, strikes, atm_vol: float, rate: float, dividend_yield: float, *,
+                 rho: float = -0.6, eta: float = 1.2, gamma: float = 0.4) -> VolSurface:
+    """An example surface sampled from :func:`ssvi_total_variance` at ``times`` (years) and
+    ``strikes`` (fractions of spot), with a flat at-the-money vol and flat rates (for the
+    forward moneyness); the defaults give a downward equity-like skew."""
+    rows = []
+    for t in times:
+        k = np.log(np.asarray(strikes, dtype=float)) - (rate - dividend_yield) * t
+        w = ssvi_total_variance(atm_vol**2 * t, k, rho, eta, gamma)
+        rows.append(tuple(np.sqrt(w / t).tolist()))
+    return VolSurface(tuple(float(t) for t in times), tuple(float(k) for k in strikes),
+                      tuple(rows))

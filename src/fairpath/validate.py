@@ -110,6 +110,7 @@ def default_cases() -> list[Case]:
     ]
     cases += path_dependent_cases()
     cases += note_cases()
+    cases += smile_cases()
     return cases
 
 
@@ -128,6 +129,45 @@ def fixed_coupon_note_reference(note: Autocallable, market: Market) -> float:
     trigger = min(note.protection_barrier, note.strike_level) * a.spot
     put = cf.gap_option(a.spot, k, trigger, t, r, a.dividend_yield, sigma, "put")
     return coupons + note.notional * float(market.df(note.maturity)) - note.notional / k * put
+
+
+#: Local volatility reprices its own surface's vanillas within this many vol points (the
+#: issue's tolerance: daily log-Euler steps and the table's interpolation).
+SMILE_TOLERANCE = 0.003
+
+
+def smile_cases() -> list[Case]:
+    """Local volatility: a flat surface against Black-Scholes-Merton, and the vanillas of a
+    skewed surface (SSVI, Gatheral-Jacquier's arbitrage-free parametrisation) repriced within
+    ``SMILE_TOLERANCE`` of their implied vols (as a price allowance: vega times it)."""
+    from fairpath.market import attach_surface
+    from fairpath.surface import VolSurface, ssvi_surface
+
+    r, q = 0.03, 0.01
+    curve = DiscountCurve.flat(r)
+    tenors = (0.25, 0.5, 1.0, 2.0, 3.0)
+    strikes = (0.6, 0.7, 0.8, 0.9, 1.0, 1.1, 1.2, 1.35, 1.5)
+    flat = VolSurface(tenors, strikes, tuple((0.25,) * len(strikes) for _ in tenors))
+    skew = ssvi_surface(tenors, strikes, 0.22, r, q)
+    base = Asset("NORDA", 100.0, VolCurve.flat(0.25), q)
+    m_flat = Market(VALUATION, "EUR", curve, (attach_surface(base, flat, curve),))
+    skewed = attach_surface(base, skew, curve)
+    m_skew = Market(VALUATION, "EUR", curve, (skewed,))
+    one_year = date(2027, 12, 1)
+    cases = [Case("local vol, flat surface: call K=105 1y = BSM", European(
+        asset="NORDA", right="call", strike=105.0, expiry=one_year), m_flat, "sobol", seed=51,
+        reference=float(cf.bsm_price(100.0, 105.0, m_flat.time(one_year), r, q, 0.25,
+                                     "call")))]
+    t = m_skew.time(one_year)
+    for k, right in ((0.8, "put"), (1.0, "call"), (1.2, "call")):
+        vol = float(skewed.surface.implied(t, k))
+        ref = float(cf.bsm_price(100.0, 100.0 * k, t, r, q, vol, right))
+        vega = float(cf.bsm_greeks(100.0, 100.0 * k, t, r, q, vol, right)["vega"])
+        cases.append(Case(f"local vol, SSVI skew: {right} K={100 * k:g} 1y (+-0.3 vol pt)",
+                          European(asset="NORDA", right=right, strike=100.0 * k,
+                                   expiry=one_year), m_skew, "sobol", seed=52,
+                          reference=ref, allowance=SMILE_TOLERANCE * vega / ref))
+    return cases
 
 
 def note_cases() -> list[Case]:
@@ -289,5 +329,6 @@ def table(results: list[CaseResult]) -> str:
                      f"{r.stderr:>10.6f} {r.z:>7.2f}  {'yes' if r.ok else 'NO'}")
     n_bad = sum(not r.ok for r in results)
     lines.append(f"{len(results) - n_bad} of {len(results)} cases within |z| <= {Z_LIMIT:g} "
-                 "(plus the exact bias of the central difference for bumped Greeks)")
+                 "(plus the exact bias of the central difference for bumped Greeks, and 0.3 "
+                 "vol points for local volatility repricing its surface)")
     return "\n".join(lines)
