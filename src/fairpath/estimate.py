@@ -746,8 +746,8 @@ def price_many(products: list[Product], market: Market, *, paths: int = DEFAULT_
     if sim.params is not None and sim.params.local is not None and sim.params.local.floored:
         lp = sim.params.local
         law_notes.append(f"local variance floored at a 1% vol at {lp.floored} of {lp.points} "
-                         "points of the table (where Dupire's formula is not positive, mostly "
-                         "far from the money)")
+                         "points of the table (where Dupire's formula is not positive: the "
+                         "surface is close to an arbitrage there)")
     sim.progress = progress
     sim.threads = None if threads is None else engine_threads(threads)
     notes: list[str] = list(law_notes)

@@ -295,8 +295,9 @@ def greeks(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
         notes.append(f"the {product.kind} payoff jumps: bumped Greeks count the paths that cross "
                      "a trigger, and for small moves (theta's one day, above all) a Sobol run "
                      "may see too few crossings for the estimate or its error bar to be "
-                     "reliable; delta and gamma also have likelihood-ratio estimates, which "
-                     "'auto' prefers unless they are far noisier")
+                     "reliable; delta and gamma also have likelihood-ratio estimates where "
+                     "the levels are lognormal, which 'auto' prefers unless they are far "
+                     "noisier")
     # scenario list: (label, market)
     scen: list[tuple[str, Market]] = [("base", market)]
     bumps = {"spot": f"{SPOT_BUMP:.0%} of spot, central", "vol": f"{VOL_BUMP:g} absolute, central",
@@ -343,10 +344,17 @@ def greeks(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
     lognormal = market.lognormal(names)
     use_lr = (method == "lr" or (method == "auto" and product.payoff_jumps)) and \
         bool(np.all(first_var > 0)) and product.score_safe() and lognormal
-    if method == "lr" and not use_lr:
-        notes.append("no likelihood-ratio estimator here (the first step has no variance, the "
-                     "payoff uses today's spot directly, or a shock law is not normal, so the "
-                     "normal score does not apply): bumps used")
+    if not use_lr and (method == "lr" or (method == "auto" and product.payoff_jumps)):
+        if not lognormal and (market.local_vol(names)
+                              or any(market.dividend_times(n) for n in names)):
+            why = ("the levels are not lognormal in today's spot (a volatility surface or cash "
+                   "dividends), so the likelihood ratio's normal score does not apply")
+        elif odd_laws:
+            why = "a shock law is not normal, so the normal score does not apply"
+        else:
+            why = ("the first step has no variance or the payoff uses today's spot directly, "
+                   "so the normal score does not apply")
+        notes.append(f"no likelihood-ratio estimator here ({why}): delta and gamma are bumped")
     if odd_laws:
         check_law_tails(market, names, runner.sim.params.variance, paths)
     notes.extend(div_notes)

@@ -268,17 +268,22 @@ class Market:
         return [(self.time(d), x) for d, x in a.dividends if d > self.valuation_date]
 
     def escrow(self, name: str, t) -> float | np.ndarray:
-        """``D(t) = sum over ex-dates t_i > t of amount_i DF(t_i) / DF(t)``: the value at ``t``
-        of the cash dividends still to come. Escrowed-dividend model: the level is
-        ``S(t) = X(t) + D(t)`` with ``X`` the diffusing (escrowed) part, so on an ex-date the
-        level drops by exactly the amount and never goes below it."""
+        """``D(t) = sum over ex-dates t_i > t of amount_i DF(t_i) / DF(t) e^{q (t_i - t)}``:
+        the cash dividends still to come, discounted at the rate less the asset's dividend
+        yield ``q``. Escrowed-dividend model: the level is ``S(t) = X(t) + D(t)`` with ``X`` the
+        diffusing (escrowed) part; both parts grow at ``r - q`` between ex-dates, so the
+        forward is ``S(0) e^{(r-q)T} - sum amount_i e^{(r-q)(T - t_i)}`` (a level that grows at
+        ``r - q`` and drops by exactly the amount on each ex-date; the convention of QuantLib's
+        analytic dividend European engine), and the level never goes below ``D(t)``."""
         t = np.asarray(t, dtype=float)
         out = np.zeros_like(t)
         divs = self.dividend_times(name)
         if divs:
+            q = self.asset(name).dividend_yield
             df_t = self.discount.df(t)
             for ti, x in divs:
-                out = out + np.where(ti > t, x * float(self.discount.df(ti)) / df_t, 0.0)
+                out = out + np.where(ti > t, x * float(self.discount.df(ti)) / df_t
+                                     * np.exp(q * (ti - t)), 0.0)
         return float(out) if out.ndim == 0 else out
 
     def escrowed_spot(self, name: str) -> float:

@@ -6,8 +6,13 @@ handled in total implied variance ``w(T, y) = sigma(T, K)^2 T`` against forward 
 
 * **in strike**, at each tenor, a monotone-preserving cubic (PCHIP, Fritsch-Carlson) through the
   quoted total variances in ``y``: smooth (continuous first derivative), and it never invents
-  wiggles between quotes; **beyond the quoted strikes the implied vol is flat** (the wing
-  quote carries on), so total variance is constant in ``y`` there;
+  wiggles between quotes; **beyond the quoted strikes the implied vol levels off and is then
+  flat**: the slope of total variance at the first and last quote is brought linearly to zero
+  over a short length (the shortest of ``WING_LENGTHS`` standard deviations that keeps the
+  density positive there), after which total variance is constant in ``y``. Holding the
+  wing quote's vol flat from the quote itself would leave a kink wherever the smile still
+  rises towards the wing: a negative point mass of density, a butterfly arbitrage that no
+  check on the quotes can see, which also distorts Dupire's formula nearby;
 * **in maturity**, at fixed forward moneyness, linear in total variance between tenors; before
   the first tenor the implied vol is that of the first tenor (``w`` grows linearly from 0), and
   after the last the implied vol of the last tenor carries on (``w`` grows linearly in ``T``).
@@ -18,7 +23,7 @@ Arbitrage checks, before any use (a surface that fails is refused, never repaire
 * **butterfly**: Gatheral's density condition ``g(y) >= 0`` at every tenor, with
   ``g = (1 - y w' / (2 w))^2 - w'^2 / 4 (1 / w + 1 / 4) + w'' / 2`` (J. Gatheral and
   A. Jacquier, "Arbitrage-free SVI volatility surfaces", Quantitative Finance 14(1), 2014,
-  Lemma 2.2), checked on a fine grid across the quoted strikes.
+  Lemma 2.2), checked on a fine grid across the quoted strikes and the wings' levelling off.
 
 Local volatility by Dupire's formula in total-variance form (J. Gatheral, "The Volatility
 Surface", Wiley 2006, equation 1.10):
@@ -72,10 +77,16 @@ class VolSurface:
     #: forward / spot at each tenor (1 until attached to an asset)
     fwd_ratio: tuple[float, ...] = ()
     label: str = field(default="", compare=False)
+    #: the tenors as the market file writes them (``"6M"``), for messages
+    tenor_names: tuple[str, ...] = field(default=(), compare=False)
 
     def __post_init__(self):
         t = np.asarray(self.times, dtype=float)
         k = np.asarray(self.strikes, dtype=float)
+        if any(np.ndim(row) != 1 or len(row) != len(self.strikes) for row in self.vols):
+            raise InputError(f"must have one row of {len(self.strikes)} vols per tenor; got "
+                             f"rows of {[int(np.size(row)) for row in self.vols]} vols",
+                             key="vol_surface.vols")
         v = np.asarray(self.vols, dtype=float)
         if t.ndim != 1 or len(t) < 1 or np.any(~np.isfinite(t)) or np.any(t <= 0):
             raise InputError("tenors must be positive", key="vol_surface.tenors")
@@ -101,13 +112,14 @@ class VolSurface:
     def attach(self, forward_ratio) -> VolSurface:
         """The surface with forwards (``forward_ratio(t) = F(t) / spot``) for moneyness."""
         return VolSurface(self.times, self.strikes, self.vols,
-                          tuple(float(forward_ratio(t)) for t in self.times), self.label)
+                          tuple(float(forward_ratio(t)) for t in self.times), self.label,
+                          self.tenor_names)
 
     def shifted(self, dv: float) -> VolSurface:
         """Every quoted vol moved by ``dv`` (a parallel vega bump)."""
         return VolSurface(self.times, self.strikes,
                           tuple(tuple(x + dv for x in row) for row in self.vols),
-                          self.fwd_ratio, self.label)
+                          self.fwd_ratio, self.label, self.tenor_names)
 
     # -- interpolation ---------------------------------------------------------------------
     def _rows(self):
@@ -117,7 +129,7 @@ class VolSurface:
         for i, t in enumerate(self.times):
             y = np.log(np.asarray(self.strikes) / fr[i])
             w = np.asarray(self.vols[i]) ** 2 * t
-            out.append((y, w, PchipInterpolator(y, w, extrapolate=False)))
+            out.append(_Row.build(y, w, t))
         return out
 
     def total_variance(self, t, y, rows=None) -> np.ndarray:
@@ -175,10 +187,9 @@ class VolSurface:
     def check(self, *, source: str | None = None, key: str = "vol_surface",
               tenor_names=None) -> None:
         """Refuse a surface with a calendar or butterfly arbitrage, naming where."""
-        names = tenor_names or [f"{t:g}y" for t in self.times]
+        names = tenor_names or self.tenor_names or [f"{t:g}y" for t in self.times]
         rows = _rows_cached(self)
-        ys = np.concatenate([r[0] for r in rows])
-        grid = np.linspace(ys.min(), ys.max(), 801)
+        grid = np.linspace(min(r.lo for r in rows), max(r.hi for r in rows), 1601)
         prev = None
         for i, (r, t) in enumerate(zip(rows, self.times, strict=True)):
             w = _row_eval(r, grid)
@@ -215,8 +226,7 @@ class VolSurface:
         t_max = max(float(t_grid.max()) if len(t_grid) else 0.0, self.times[-1])
         w_max = float(self.total_variance(t_max, 0.0, rows))
         half = Y_WIDTH * math.sqrt(max(w_max, 1e-8))
-        ys = np.concatenate([r[0] for r in rows])
-        half = max(half, float(np.abs(ys).max()) * 1.2)
+        half = max(half, 1.05 * max(max(abs(r.lo), abs(r.hi)) for r in rows))
         y = np.linspace(-half, half, Y_POINTS)
         dy = y[1] - y[0]
         table = np.empty((len(t_grid), Y_POINTS))
@@ -237,28 +247,110 @@ class VolSurface:
         return LocalVolTable(t_grid, float(y[0]), float(dy), table, floored, table.size)
 
 
-def _row_eval(row, y: np.ndarray) -> np.ndarray:
-    """Total variance of one tenor at forward log-moneyness ``y``: the PCHIP inside the quotes,
-    the wing quote's total variance beyond (flat implied vol)."""
-    ys, ws, f = row
-    y = np.asarray(y, dtype=float)
-    out = np.where(y <= ys[0], ws[0], np.where(y >= ys[-1], ws[-1], 0.0))
-    inside = (y > ys[0]) & (y < ys[-1])
-    if inside.any():
-        out = out.astype(float)
-        out[inside] = f(y[inside])
-    return out
+#: Lengths (in standard deviations ``sqrt(w)`` of the tenor) tried, shortest first, for the
+#: wings' levelling off beyond the quoted strikes (see :class:`_Row`).
+WING_LENGTHS = (0.05, 0.1, 0.2, 0.4, 0.8, 1.6, 3.2)
 
 
-def butterfly(row, t: float, points: int = 801) -> tuple[np.ndarray, np.ndarray]:
-    """Gatheral's ``g(y)`` of one tenor across its quoted strikes (fine grid)."""
-    ys, ws, f = row
-    y = np.linspace(ys[0], ys[-1], points)
-    w = f(y)
-    w1 = f.derivative(1)(y)
-    w2 = f.derivative(2)(y)
-    g = (1 - y * w1 / (2 * w)) ** 2 - w1 * w1 / 4 * (1 / w + 0.25) + w2 / 2
-    return g, y
+class _Row:
+    """Total variance of one tenor against forward log-moneyness ``y``.
+
+    Inside the quotes: PCHIP through them. Beyond the first and last quote the slope of
+    total variance is brought linearly to zero over a length ``L`` (a quadratic in ``y``),
+    after which total variance, so the implied vol, is flat. Holding the wing quote's vol
+    flat from the quote itself would leave a kink in total variance there wherever the smile
+    still rises towards the wing, and a kink is a point mass of negative density (a butterfly
+    arbitrage no check on the quotes can see; it also distorts Dupire's formula nearby). ``L``
+    is the shortest of :data:`WING_LENGTHS` (times the tenor's at-the-money-ish standard
+    deviation) for which Gatheral's ``g >= 0`` holds across the levelling off; when none
+    does, the row keeps the longest and the butterfly check refuses the surface there."""
+
+    __slots__ = ("ys", "ws", "f", "d_lo", "d_hi", "len_lo", "len_hi", "t")
+
+    def __init__(self, ys, ws, f, d_lo, d_hi, len_lo, len_hi, t):
+        self.ys, self.ws, self.f, self.t = ys, ws, f, t
+        self.d_lo, self.d_hi, self.len_lo, self.len_hi = d_lo, d_hi, len_lo, len_hi
+
+    @classmethod
+    def build(cls, ys: np.ndarray, ws: np.ndarray, t: float) -> _Row:
+        f = PchipInterpolator(ys, ws, extrapolate=False)
+        d = f.derivative(1)(np.array([ys[0], ys[-1]]))
+        row = cls(ys, ws, f, float(d[0]), float(d[1]), 0.0, 0.0, t)
+        sd = math.sqrt(float(np.max(ws)))
+        for side in ("lo", "hi"):
+            for length in WING_LENGTHS:
+                setattr(row, "len_" + side, length * sd)
+                if row.wing_ok(side):
+                    break
+        return row
+
+    @property
+    def lo(self) -> float:
+        return float(self.ys[0]) - self.len_lo
+
+    @property
+    def hi(self) -> float:
+        return float(self.ys[-1]) + self.len_hi
+
+    def derivatives(self, y) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """``w``, ``dw/dy`` and ``d2w/dy2`` at ``y`` (any shape)."""
+        y = np.asarray(y, dtype=float)
+        w = np.empty(y.shape)
+        w1 = np.zeros(y.shape)
+        w2 = np.zeros(y.shape)
+        y0, y1 = float(self.ys[0]), float(self.ys[-1])
+        inside = (y >= y0) & (y <= y1)
+        if inside.any():
+            yi = y[inside]
+            w[inside] = self.f(yi)
+            w1[inside] = self.f.derivative(1)(yi)
+            w2[inside] = self.f.derivative(2)(yi)
+        for side, edge, wq, d, length, mask in (
+                ("lo", y0, self.ws[0], self.d_lo, self.len_lo, y < y0),
+                ("hi", y1, self.ws[-1], self.d_hi, self.len_hi, y > y1)):
+            if not mask.any():
+                continue
+            u = np.abs(y[mask] - edge)  # distance beyond the quote
+            sign = -1.0 if side == "lo" else 1.0
+            slope_out = d * sign  # dw/du at the quote, u measured outwards
+            if length <= 0 or slope_out == 0.0:
+                w[mask] = wq
+                continue
+            uc = np.minimum(u, length)
+            w[mask] = wq + slope_out * (uc - uc * uc / (2.0 * length))
+            w1[mask] = sign * slope_out * (1.0 - uc / length)
+            w2[mask] = np.where(u < length, -slope_out / length, 0.0)
+        return w, w1, w2
+
+    def __call__(self, y) -> np.ndarray:
+        return self.derivatives(y)[0]
+
+    def g(self, y) -> np.ndarray:
+        """Gatheral's density function ``g(y)`` (Gatheral and Jacquier 2014, Lemma 2.2)."""
+        y = np.asarray(y, dtype=float)
+        w, w1, w2 = self.derivatives(y)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            return (1 - y * w1 / (2 * w)) ** 2 - w1 * w1 / 4 * (1 / w + 0.25) + w2 / 2
+
+    def wing_ok(self, side: str) -> bool:
+        if side == "lo":
+            y = np.linspace(self.lo, float(self.ys[0]), 201)
+        else:
+            y = np.linspace(float(self.ys[-1]), self.hi, 201)
+        w = self(y)
+        return bool(np.all(w > 0) and self.g(y).min() >= -BUTTERFLY_TOL)
+
+
+def _row_eval(row: _Row, y: np.ndarray) -> np.ndarray:
+    """Total variance of one tenor at forward log-moneyness ``y`` (see :class:`_Row`)."""
+    return row(y)
+
+
+def butterfly(row: _Row, t: float, points: int = 801) -> tuple[np.ndarray, np.ndarray]:
+    """Gatheral's ``g(y)`` of one tenor across its quoted strikes and the wings' levelling
+    off (fine grid)."""
+    y = np.linspace(row.lo, row.hi, points)
+    return row.g(y), y
 
 
 _ROWS: dict = {}
@@ -316,7 +408,8 @@ def parse_surface(tab, valuation, day_count: str) -> VolSurface:
                           for j, v in enumerate(row)))
     tab.finish()
     try:
-        return VolSurface(tuple(times), tuple(strikes), tuple(vols), label=tab.prefix)
+        return VolSurface(tuple(times), tuple(strikes), tuple(vols), label=tab.prefix,
+                          tenor_names=tuple(str(x) for x in tenors))
     except InputError as exc:
         raise InputError(exc.problem, source=tab.source, key=tab.prefix) from None
 
