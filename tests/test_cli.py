@@ -231,6 +231,19 @@ def test_demo_json(capsys):
             assert abs(r["price"] - r["closed_form"]) <= 4 * r["stderr"] + 1e-9, r
 
 
+@pytest.mark.parametrize("market", ["demo_smile.toml", "demo_laws.toml"])
+def test_demo_shows_no_closed_form_where_its_model_does_not_apply(market, capsys):
+    # Black-Scholes-Merton assumes lognormal levels: no closed form column under a surface,
+    # cash dividends or a non-normal law, so the demo must not print one beside the price
+    root = Path(__file__).resolve().parents[1]
+    code, out, err = run(["demo", "--json", "--paths", "1024", "--market",
+                          root / "markets" / market, "--payoffs", root / "payoffs"], capsys)
+    assert code == 0, err
+    rows = {r["file"]: r for r in json.loads(out)["results"]}
+    assert rows["european_call.toml"]["status"] == "ok"
+    assert rows["european_call.toml"]["closed_form"] is None
+
+
 def test_demo_bad_folder(tmp_path, capsys):
     code, out, err = run(["demo", "--payoffs", tmp_path], capsys)
     assert_bad_input(code, out, err, tmp_path, "no product files")

@@ -384,7 +384,7 @@ def _demo(args) -> int:
             product = load_product(f)
             res = estimate.price(product, market, paths=args.paths, sampler=args.sampler,
                                  seed=args.seed, replicates=args.replicates, source=str(f))
-            ref = product.closed_form(market)
+            ref = product.reference(market)
             row.update(name=product.label(), kind=product.kind, price=res.price,
                        stderr=res.stderr, ci95=list(res.ci95), closed_form=ref,
                        seconds=res.seconds, status="ok")
