@@ -40,8 +40,8 @@ import QuantLib as ql
 from scipy.stats import norm
 
 import fairpath as fp
+from clitools import run
 from fairpath import closed_form as cf
-from fairpath.cli import main
 
 ROOT = Path(__file__).resolve().parents[1]
 DEMO_MARKET = ROOT / "markets" / "demo.toml"
@@ -606,14 +606,6 @@ def write_product(tmp_path: Path, name: str, edit, extra: str = "") -> Path:
     return p
 
 
-def cli(argv, capsys) -> tuple[int, str, str]:
-    try:
-        code = main([str(a) for a in argv])
-    except SystemExit as exc:
-        code = exc.code
-    out, err = capsys.readouterr()
-    return code, out, err
-
 
 @pytest.mark.parametrize("case", sorted(BAD))
 def test_bad_note_is_one_line_naming_file_and_key(case, tmp_path, capsys):
@@ -629,7 +621,7 @@ def test_bad_note_is_one_line_naming_file_and_key(case, tmp_path, capsys):
     assert "\n" not in msg
     assert msg.startswith(f"{path}: {key}: "), msg
     assert info.value.key == key
-    code, out, err = cli(["price", path, "--market", DEMO_MARKET, "--paths", "1024",
+    code, out, err = run(["price", path, "--market", DEMO_MARKET, "--paths", "1024",
                           "--sampler", "pseudo"], capsys)
     assert code == 2
     lines = err.strip().splitlines()
@@ -650,7 +642,7 @@ def test_coupon_barrier_above_every_autocall_level_warns(tmp_path, capsys):
         fp.load_product(write_product(tmp_path, "at the level",
                                       ("coupon_barrier = 0.70", "coupon_barrier = 1.00"),
                                       "autocall_step = -0.05\n"))  # at the first level: fine
-    code, out, err = cli(["price", path, "--market", DEMO_MARKET, "--paths", "1024",
+    code, out, err = run(["price", path, "--market", DEMO_MARKET, "--paths", "1024",
                           "--sampler", "pseudo", "--json"], capsys)
     assert code == 0
     assert [ln for ln in err.splitlines() if ln.startswith("fairpath: warning:")

@@ -32,8 +32,8 @@ from pathlib import Path
 import pytest
 
 import fairpath as fp
+from clitools import assert_bad_input, run
 from fairpath.book import COLUMNS, price_book, read_trades, trade_stream
-from fairpath.cli import main
 from fairpath.errors import InputError
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -113,25 +113,6 @@ def data_lines(out: Path) -> int:
     return max(text.count("\n") - 1, 0)
 
 
-def run(argv, capsys) -> tuple[int, str, str]:
-    """Run main() in-process; argparse errors (SystemExit) become the exit status."""
-    try:
-        code = main([str(a) for a in argv])
-    except SystemExit as exc:
-        code = exc.code
-    out, err = capsys.readouterr()
-    return code, out, err
-
-
-def assert_bad_input(code, out, err, *fragments):
-    assert code == 2, (code, err)
-    assert out == ""
-    assert "Traceback" not in err
-    lines = err.splitlines()
-    assert len(lines) == 1, err
-    assert lines[0].startswith("fairpath"), lines[0]
-    for f in fragments:
-        assert str(f) in lines[0], (f, lines[0])
 
 
 def consistent(a: dict, b: dict, k: float = 4.0) -> bool:

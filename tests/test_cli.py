@@ -19,7 +19,7 @@ from pathlib import Path
 import pytest
 import QuantLib as ql
 
-from fairpath.cli import main
+from clitools import assert_bad_input, run
 
 ROOT = Path(__file__).resolve().parents[1]
 MARKET = ROOT / "markets" / "demo.toml"
@@ -32,15 +32,6 @@ CONTRACT_KEYS = ["price", "stderr", "ci95", "paths", "currency", "sampler", "see
 # stdev = 0.25, discount e^{-0.03}
 BSM_CALL = ql.blackFormula(ql.Option.Call, 105.0, 100.0 * math.exp(0.01), 0.25, math.exp(-0.03))
 
-
-def run(argv, capsys) -> tuple[int, str, str]:
-    """Run main() in-process; argparse errors (SystemExit) become the exit status."""
-    try:
-        code = main([str(a) for a in argv])
-    except SystemExit as exc:
-        code = exc.code
-    out, err = capsys.readouterr()
-    return code, out, err
 
 
 def price_json(capsys, *extra, product=CALL, market=MARKET) -> dict:
@@ -59,16 +50,6 @@ def variant(tmp_path: Path, source: Path, old: str, new: str, name: str) -> Path
     p.write_text(text.replace(old, new, 1), encoding="utf-8")
     return p
 
-
-def assert_bad_input(code, out, err, *fragments):
-    assert code == 2, (code, err)
-    assert out == ""
-    assert "Traceback" not in err
-    lines = err.splitlines()
-    assert len(lines) == 1, err
-    assert lines[0].startswith("fairpath"), lines[0]
-    for f in fragments:
-        assert str(f) in lines[0], (f, lines[0])
 
 
 def within(d: dict, ref: float, k: float = 4.0) -> bool:

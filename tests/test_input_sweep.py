@@ -23,6 +23,7 @@ from pathlib import Path
 import pytest
 
 import fairpath as fp
+from clitools import assert_bad_input, run
 from fairpath.cli import main
 
 MARKET = """valuation_date = 2026-12-01
@@ -605,13 +606,9 @@ def test_bad_input_from_the_command_line(case: Case, tmp_path, capsys):
     else:
         argv = ["price", first]
     argv += ["--market", market_path, "--paths", "256", "--sampler", "pseudo"]
-    code = main([str(a) for a in argv])
-    out, err = capsys.readouterr()
-    assert code == 2, (code, out, err)
-    assert out == ""
-    assert "Traceback" not in err
+    code, out, err = run(argv, capsys)
+    assert_bad_input(code, out, err)
     lines = err.splitlines()
-    assert len(lines) == 1, err
     prefix = "fairpath: error: "
     assert lines[0].startswith(prefix), lines[0]
     assert_message(lines[0][len(prefix):], bad, case)

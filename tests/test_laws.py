@@ -42,8 +42,8 @@ import pytest
 from scipy import integrate, stats
 
 import fairpath as fp
+from clitools import assert_bad_input, run
 from fairpath import closed_form as cf
-from fairpath.cli import main
 from fairpath.estimate import Simulation
 from fairpath.laws import LAW_CLIP, NORMAL, EmpiricalLaw, StudentT
 from fairpath.sampling import make_sampler
@@ -575,25 +575,6 @@ def write_history(path: Path, closes, *, header="date,close", newest_first=False
     return path
 
 
-def run(argv, capsys) -> tuple[int, str, str]:
-    """Run main() in-process; argparse errors (SystemExit) become the exit status."""
-    try:
-        code = main([str(a) for a in argv])
-    except SystemExit as exc:
-        code = exc.code
-    out, err = capsys.readouterr()
-    return code, out, err
-
-
-def assert_bad_input(code, out, err, *fragments):
-    assert code == 2, (code, err)
-    assert out == ""
-    assert "Traceback" not in err
-    lines = err.splitlines()
-    assert len(lines) == 1, err
-    assert lines[0].startswith("fairpath"), lines[0]
-    for f in fragments:
-        assert str(f) in lines[0], (f, lines[0])
 
 
 def test_market_file_laws_are_parsed(tmp_path):

@@ -42,8 +42,8 @@ import QuantLib as ql
 from scipy.optimize import brentq
 
 import fairpath as fp
+from clitools import assert_bad_input, run
 from fairpath import closed_form as cf
-from fairpath.cli import main
 from fairpath.dates import parse_tenor, year_fraction
 from fairpath.errors import InputError
 from fairpath.market import attach_surface
@@ -193,31 +193,12 @@ def within(res, ref: float, k: float = 4.0, allowance: float = 0.0) -> bool:
     return abs(res.price - ref) <= k * res.stderr + allowance
 
 
-def run(argv, capsys) -> tuple[int, str, str]:
-    """Run main() in-process; argparse errors (SystemExit) become the exit status."""
-    try:
-        code = main([str(a) for a in argv])
-    except SystemExit as exc:
-        code = exc.code
-    out, err = capsys.readouterr()
-    return code, out, err
-
 
 def price_json(capsys, product: Path, market: Path, *extra) -> dict:
     code, out, err = run(["price", product, "--market", market, "--json", *extra], capsys)
     assert code == 0, err
     return json.loads(out)
 
-
-def assert_bad_input(code, out, err, *fragments):
-    assert code == 2, (code, err)
-    assert out == ""
-    assert "Traceback" not in err
-    lines = err.splitlines()
-    assert len(lines) == 1, err
-    assert lines[0].startswith("fairpath"), lines[0]
-    for f in fragments:
-        assert str(f) in lines[0], (f, lines[0])
 
 
 # ---------------------------------------------------------------------------------------------

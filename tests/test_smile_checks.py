@@ -42,7 +42,7 @@ import pytest
 import QuantLib as ql
 
 import fairpath as fp
-from fairpath.cli import main
+from clitools import assert_bad_input, run
 from fairpath.errors import InputError
 from fairpath.market import attach_surface
 from fairpath.surface import Y_POINTS, VolSurface, ssvi_surface, ssvi_total_variance
@@ -144,15 +144,6 @@ def european(right: str, strike: float, expiry: date, asset: str = "NORDA") -> f
     return fp.European(asset=asset, right=right, strike=strike, expiry=expiry)
 
 
-def run(argv, capsys) -> tuple[int, str, str]:
-    """main() in-process; argparse's SystemExit becomes the exit status."""
-    try:
-        code = main([str(a) for a in argv])
-    except SystemExit as exc:
-        code = exc.code
-    out, err = capsys.readouterr()
-    return code, out, err
-
 
 def price_json(capsys, product, market, *extra) -> dict:
     code, out, err = run(["price", product, "--market", market, "--json", *extra], capsys)
@@ -161,16 +152,6 @@ def price_json(capsys, product, market, *extra) -> dict:
     assert len(lines) == 1, out
     return json.loads(lines[0])
 
-
-def assert_one_line_error(code, out, err, *fragments):
-    assert code == 2, (code, err)
-    assert out == ""
-    assert "Traceback" not in err
-    lines = err.splitlines()
-    assert len(lines) == 1, err
-    assert lines[0].startswith("fairpath"), lines[0]
-    for f in fragments:
-        assert str(f) in lines[0], (f, lines[0])
 
 
 def toml_rows(rows) -> str:
@@ -435,7 +416,7 @@ def test_cli_refuses_arbitrage_in_one_line_without_output(kind, command, tmp_pat
     else:
         trades = write(tmp_path / "trades.csv", "trade_id,product\nT1,call.toml\n")
         argv = ["book", trades, "--market", market, "--out", results]
-    assert_one_line_error(*run(argv, capsys), market, "assets.NORDA.vol_surface",
+    assert_bad_input(*run(argv, capsys), market, "assets.NORDA.vol_surface",
                           f"{kind} arbitrage")
     assert not report.exists() and not results.exists()
     assert not (tmp_path / "results.csv.run.json").exists()
@@ -449,7 +430,7 @@ def test_console_script_refuses_arbitrage(tmp_path):
     product = write(tmp_path / "call.toml", european_toml("call", 105.0, ONE_Y))
     res = subprocess.run([str(exe), "price", str(product), "--market", str(market), "--json"],
                          capture_output=True, text=True, timeout=300)
-    assert_one_line_error(res.returncode, res.stdout, res.stderr, market,
+    assert_bad_input(res.returncode, res.stdout, res.stderr, market,
                           "assets.NORDA.vol_surface", "butterfly arbitrage")
 
 
@@ -489,7 +470,7 @@ def test_cli_bad_surface_or_dividends(case, tmp_path, capsys):
     market = write(tmp_path / "m.toml", market_toml(surface=(tenors, strikes, rows),
                                                     dividends=divs))
     product = write(tmp_path / "call.toml", european_toml("call", 105.0, ONE_Y))
-    assert_one_line_error(*run(["price", product, "--market", market, "--json"], capsys),
+    assert_bad_input(*run(["price", product, "--market", market, "--json"], capsys),
                           market, key, words)
 
 

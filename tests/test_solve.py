@@ -37,7 +37,7 @@ import QuantLib as ql
 from scipy.stats import norm
 
 import fairpath as fp
-from fairpath.cli import main
+from clitools import run
 
 ROOT = Path(__file__).resolve().parents[1]
 DEMO_MARKET = ROOT / "markets" / "demo.toml"
@@ -276,17 +276,9 @@ def test_negative_coupon_needed_is_refused():
     assert info.value.key == "--target"
 
 
-def cli(argv, capsys) -> tuple[int, str, str]:
-    try:
-        code = main([str(a) for a in argv])
-    except SystemExit as exc:
-        code = exc.code
-    out, err = capsys.readouterr()
-    return code, out, err
-
 
 def test_cli_solve_json_contract(capsys):
-    code, out, err = cli(["solve", SINGLE, "--market", DEMO_MARKET, "--for", "coupon",
+    code, out, err = run(["solve", SINGLE, "--market", DEMO_MARKET, "--for", "coupon",
                           "--target", "1000", "--json"], capsys)
     assert code == 0, err
     lines = out.strip().splitlines()
@@ -308,7 +300,7 @@ def test_cli_solve_json_contract(capsys):
      ["--target", "no coupon >= 0"]),
 ])
 def test_cli_solve_bad_input_is_exit_2_and_one_line(argv_tail, words, capsys):
-    code, out, err = cli(["solve", SINGLE, "--market", DEMO_MARKET, *argv_tail], capsys)
+    code, out, err = run(["solve", SINGLE, "--market", DEMO_MARKET, *argv_tail], capsys)
     assert code == 2
     lines = err.strip().splitlines()
     assert len(lines) == 1, err
