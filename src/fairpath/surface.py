@@ -123,13 +123,13 @@ class VolSurface:
 
     # -- interpolation ---------------------------------------------------------------------
     def _rows(self):
-        """Per tenor: forward log-moneyness of the quotes and a PCHIP of total variance."""
+        """Per tenor, total variance against forward log-moneyness (a :class:`_Row`)."""
         fr = self.fwd_ratio or tuple(1.0 for _ in self.times)
         out = []
         for i, t in enumerate(self.times):
             y = np.log(np.asarray(self.strikes) / fr[i])
             w = np.asarray(self.vols[i]) ** 2 * t
-            out.append(_Row.build(y, w, t))
+            out.append(_Row.build(y, w))
         return out
 
     def total_variance(self, t, y, rows=None) -> np.ndarray:
@@ -166,7 +166,7 @@ class VolSurface:
 
     def _implied_variances(self, y: np.ndarray, rows) -> np.ndarray:
         """(tenors, len(y)): each tenor's implied variance (vol^2) at forward moneyness y."""
-        return np.stack([_row_eval(r, y) / T for r, T in zip(rows, self.times, strict=True)])
+        return np.stack([r(y) / T for r, T in zip(rows, self.times, strict=True)])
 
     def implied(self, t, m) -> np.ndarray:
         """Black vol at time ``t`` and strike ``m`` x spot."""
@@ -180,19 +180,19 @@ class VolSurface:
         """Black vol at the forward (``y = 0``) at each tenor: the at-the-money term
         structure used by ``--flat-vol``."""
         rows = _rows_cached(self)
-        return tuple(float(math.sqrt(_row_eval(r, np.zeros(1))[0] / t))
+        return tuple(float(math.sqrt(r(np.zeros(1))[0] / t))
                      for r, t in zip(rows, self.times, strict=True))
 
     # -- arbitrage -------------------------------------------------------------------------
-    def check(self, *, source: str | None = None, key: str = "vol_surface",
-              tenor_names=None) -> None:
-        """Refuse a surface with a calendar or butterfly arbitrage, naming where."""
-        names = tenor_names or self.tenor_names or [f"{t:g}y" for t in self.times]
+    def check(self, *, source: str | None = None, key: str = "vol_surface") -> None:
+        """Refuse a surface with a calendar or butterfly arbitrage, naming where (tenors as
+        the market file writes them, when it does)."""
+        names = self.tenor_names or [f"{t:g}y" for t in self.times]
         rows = _rows_cached(self)
         grid = np.linspace(min(r.lo for r in rows), max(r.hi for r in rows), 1601)
         prev = None
-        for i, (r, t) in enumerate(zip(rows, self.times, strict=True)):
-            w = _row_eval(r, grid)
+        for i, r in enumerate(rows):
+            w = r(grid)
             if prev is not None:
                 bad = w < prev - CALENDAR_TOL * max(1.0, float(np.max(prev)))
                 if bad.any():
@@ -202,7 +202,7 @@ class VolSurface:
                         f"to {names[i]} at strike {self._strike_name(i, y)} (forward "
                         f"moneyness {y:+.3f})", source=source, key=key)
             prev = w
-            g, y = butterfly(r, t)
+            g, y = r.butterfly()
             if g.min() < -BUTTERFLY_TOL:
                 yy = y[np.argmin(g)]
                 raise InputError(
@@ -265,17 +265,18 @@ class _Row:
     deviation) for which Gatheral's ``g >= 0`` holds across the levelling off; when none
     does, the row keeps the longest and the butterfly check refuses the surface there."""
 
-    __slots__ = ("ys", "ws", "f", "d_lo", "d_hi", "len_lo", "len_hi", "t")
+    __slots__ = ("ys", "ws", "f", "f1", "f2", "d_lo", "d_hi", "len_lo", "len_hi")
 
-    def __init__(self, ys, ws, f, d_lo, d_hi, len_lo, len_hi, t):
-        self.ys, self.ws, self.f, self.t = ys, ws, f, t
-        self.d_lo, self.d_hi, self.len_lo, self.len_hi = d_lo, d_hi, len_lo, len_hi
+    def __init__(self, ys: np.ndarray, ws: np.ndarray):
+        self.ys, self.ws = ys, ws
+        self.f = PchipInterpolator(ys, ws, extrapolate=False)
+        self.f1, self.f2 = self.f.derivative(1), self.f.derivative(2)
+        self.d_lo, self.d_hi = (float(d) for d in self.f1(np.array([ys[0], ys[-1]])))
+        self.len_lo = self.len_hi = 0.0
 
     @classmethod
-    def build(cls, ys: np.ndarray, ws: np.ndarray, t: float) -> _Row:
-        f = PchipInterpolator(ys, ws, extrapolate=False)
-        d = f.derivative(1)(np.array([ys[0], ys[-1]]))
-        row = cls(ys, ws, f, float(d[0]), float(d[1]), 0.0, 0.0, t)
+    def build(cls, ys: np.ndarray, ws: np.ndarray) -> _Row:
+        row = cls(ys, ws)
         sd = math.sqrt(float(np.max(ws)))
         for side in ("lo", "hi"):
             for length in WING_LENGTHS:
@@ -292,8 +293,9 @@ class _Row:
     def hi(self) -> float:
         return float(self.ys[-1]) + self.len_hi
 
-    def derivatives(self, y) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-        """``w``, ``dw/dy`` and ``d2w/dy2`` at ``y`` (any shape)."""
+    def derivatives(self, y, values_only: bool = False):
+        """``w``, ``dw/dy`` and ``d2w/dy2`` at ``y`` (any shape); ``w`` alone if
+        ``values_only``."""
         y = np.asarray(y, dtype=float)
         w = np.empty(y.shape)
         w1 = np.zeros(y.shape)
@@ -303,8 +305,9 @@ class _Row:
         if inside.any():
             yi = y[inside]
             w[inside] = self.f(yi)
-            w1[inside] = self.f.derivative(1)(yi)
-            w2[inside] = self.f.derivative(2)(yi)
+            if not values_only:
+                w1[inside] = self.f1(yi)
+                w2[inside] = self.f2(yi)
         for side, edge, wq, d, length, mask in (
                 ("lo", y0, self.ws[0], self.d_lo, self.len_lo, y < y0),
                 ("hi", y1, self.ws[-1], self.d_hi, self.len_hi, y > y1)):
@@ -318,12 +321,13 @@ class _Row:
                 continue
             uc = np.minimum(u, length)
             w[mask] = wq + slope_out * (uc - uc * uc / (2.0 * length))
-            w1[mask] = sign * slope_out * (1.0 - uc / length)
-            w2[mask] = np.where(u < length, -slope_out / length, 0.0)
-        return w, w1, w2
+            if not values_only:
+                w1[mask] = sign * slope_out * (1.0 - uc / length)
+                w2[mask] = np.where(u < length, -slope_out / length, 0.0)
+        return w if values_only else (w, w1, w2)
 
     def __call__(self, y) -> np.ndarray:
-        return self.derivatives(y)[0]
+        return self.derivatives(y, values_only=True)
 
     def g(self, y) -> np.ndarray:
         """Gatheral's density function ``g(y)`` (Gatheral and Jacquier 2014, Lemma 2.2)."""
@@ -340,17 +344,11 @@ class _Row:
         w = self(y)
         return bool(np.all(w > 0) and self.g(y).min() >= -BUTTERFLY_TOL)
 
-
-def _row_eval(row: _Row, y: np.ndarray) -> np.ndarray:
-    """Total variance of one tenor at forward log-moneyness ``y`` (see :class:`_Row`)."""
-    return row(y)
-
-
-def butterfly(row: _Row, t: float, points: int = 801) -> tuple[np.ndarray, np.ndarray]:
-    """Gatheral's ``g(y)`` of one tenor across its quoted strikes and the wings' levelling
-    off (fine grid)."""
-    y = np.linspace(row.lo, row.hi, points)
-    return row.g(y), y
+    def butterfly(self, points: int = 801) -> tuple[np.ndarray, np.ndarray]:
+        """``g(y)`` and ``y`` on a fine grid across the quoted strikes and the wings'
+        levelling off."""
+        y = np.linspace(self.lo, self.hi, points)
+        return self.g(y), y
 
 
 _ROWS: dict = {}
