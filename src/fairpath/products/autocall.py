@@ -39,7 +39,7 @@ import numpy as np
 
 from fairpath.dates import schedule_dates
 from fairpath.errors import FairpathWarning, InputError
-from fairpath.inputs import MAX_AMOUNT, did_you_mean, show
+from fairpath.inputs import MAX_AMOUNT, show
 from fairpath.laws import BRIDGE_UNDER_LAW
 from fairpath.market import Market
 from fairpath.products.base import (
@@ -48,6 +48,7 @@ from fairpath.products.base import (
     asset_list,
     check_horizon,
     read_asset_names,
+    read_initial_levels,
 )
 
 #: Levels between this and 1000 are refused as not fractions of the initial level (a
@@ -174,15 +175,7 @@ class Autocallable(Product):
     @classmethod
     def from_table(cls, tab) -> dict:
         assets = read_asset_names(tab)
-        init = tab.table("initial_levels", None)
-        levels = ()
-        if init is not None:
-            for k in init.data:
-                if k not in assets:
-                    raise init.error(k, f"{show(k)} is not one of the note's assets "
-                                     f"{list(assets)}{did_you_mean(k, assets)}")
-            levels = tuple((k, init.number(k, positive=True, limit=MAX_AMOUNT))
-                           for k in list(init.data))
+        levels = read_initial_levels(tab, assets, "note")
         coupon = tab.number("coupon", nonnegative=True)
         observations = schedule_dates(tab.raw("observations"), source=tab.source,
                                       key="observations")

@@ -332,6 +332,19 @@ def read_asset_names(tab) -> tuple[str, ...]:
     return tuple(assets)
 
 
+def read_initial_levels(tab, assets, what: str) -> tuple[tuple[str, float], ...]:
+    """The optional ``initial_levels`` table of a product on ``assets`` (``what``: "note",
+    "basket", for the message): each key one of the assets, each level positive."""
+    init = tab.table("initial_levels", None)
+    if init is None:
+        return ()
+    for k in init.data:
+        if k not in assets:
+            raise init.error(k, f"{show(k)} is not one of the {what}'s assets "
+                             f"{list(assets)}{did_you_mean(k, assets)}")
+    return tuple((k, init.number(k, positive=True, limit=MAX_AMOUNT)) for k in list(init.data))
+
+
 def single_asset_quantity(tab) -> float:
     """``quantity`` of a single-asset product; ``notional`` is refused with a pointer to it."""
     if "notional" in tab.data:

@@ -32,7 +32,7 @@ from scipy.special import ndtr
 
 from fairpath import closed_form as cf
 from fairpath.errors import InputError
-from fairpath.inputs import MAX_AMOUNT, did_you_mean, show
+from fairpath.inputs import MAX_AMOUNT
 from fairpath.kernels import extreme_given_last
 from fairpath.market import Market, integrate_vol_product
 from fairpath.products.base import (
@@ -42,6 +42,7 @@ from fairpath.products.base import (
     asset_list,
     pathwise_from_gradient,
     read_asset_names,
+    read_initial_levels,
 )
 from fairpath.products.vanilla import RIGHTS
 
@@ -129,15 +130,7 @@ class Basket(Product):
         if weights is not None:
             weights = tuple(tab.check_number(f"weights[{i}]", x, nonnegative=True)
                             for i, x in enumerate(weights))
-        init = tab.table("initial_levels", None)
-        levels = ()
-        if init is not None:
-            for k in init.data:
-                if k not in assets:
-                    raise init.error(k, f"{show(k)} is not one of the basket's assets "
-                                     f"{list(assets)}{did_you_mean(k, assets)}")
-            levels = tuple((k, init.number(k, positive=True, limit=MAX_AMOUNT))
-                           for k in list(init.data))
+        levels = read_initial_levels(tab, assets, "basket")
         notional = tab.number("notional", 1.0, limit=MAX_AMOUNT)
         quantity = tab.number("quantity", 1.0, limit=MAX_AMOUNT)
         strike_level = tab.number("strike_level", nonnegative=True)
@@ -205,6 +198,23 @@ class Basket(Product):
             return self.raw_payoff(paths)
         return self._conditional(paths, *law) * (paths.df(self.expiry) * self.notional)
 
+    def log_performance_law(self, market: Market, t: float) -> tuple[np.ndarray, np.ndarray]:
+        """Mean and covariance of the log-performances ``log(S_i(t) / S_i(0))`` at time ``t``
+        under lognormal levels: ``log(F_i(t) / S_i(0)) - cov_ii / 2`` and ``rho_ij int
+        sigma_i sigma_j``."""
+        corr = market.correlation_matrix(self.assets)
+        assets = [market.asset(a) for a in self.assets]
+        n = len(assets)
+        cov = np.empty((n, n))
+        for i in range(n):
+            for j in range(n):
+                cov[i, j] = corr[i, j] * integrate_vol_product(assets[i].vol, assets[j].vol,
+                                                               0.0, t)
+        init = self.initial(market)
+        mean = np.array([math.log(market.forward(a.name, t) / init[i]) - 0.5 * cov[i, i]
+                         for i, a in enumerate(assets)])
+        return mean, cov
+
     def terminal_law(self, market: Market):
         """Mean and covariance of the log-performances at expiry (jointly normal under normal
         shocks), or None when the last asset cannot be integrated analytically (one asset,
@@ -215,16 +225,7 @@ class Basket(Product):
             return None
         if self.combine == "average" and not self.basket_weights[-1] > 0:
             return None  # the last asset does not enter the basket
-        corr = market.correlation_matrix(self.assets)
-        assets = [market.asset(a) for a in self.assets]
-        cov = np.empty((n, n))
-        for i in range(n):
-            for j in range(n):
-                cov[i, j] = corr[i, j] * integrate_vol_product(assets[i].vol, assets[j].vol,
-                                                               0.0, t)
-        init = self.initial(market)
-        mean = np.array([math.log(market.forward(a.name, t) / init[i]) - 0.5 * cov[i, i]
-                         for i, a in enumerate(assets)])
+        mean, cov = self.log_performance_law(market, t)
         o = list(range(n - 1))
         beta = np.linalg.pinv(cov[np.ix_(o, o)]) @ cov[o, n - 1]
         var = float(cov[n - 1, n - 1] - cov[n - 1, o] @ beta)
@@ -274,17 +275,8 @@ class Basket(Product):
         """Exact value (unit notional) of the option on the geometric basket under the model."""
         t = market.time(self.expiry)
         w = np.asarray(self.basket_weights)
-        corr = market.correlation_matrix(self.assets)
-        assets = [market.asset(n) for n in self.assets]
-        n = len(assets)
-        cov = np.empty((n, n))
-        for i in range(n):
-            for j in range(n):
-                cov[i, j] = corr[i, j] * integrate_vol_product(assets[i].vol, assets[j].vol,
-                                                               0.0, t)
-        init = self.initial(market)
-        mean_log = sum(w[i] * (math.log(market.forward(a.name, t) / init[i]) - 0.5 * cov[i, i])
-                       for i, a in enumerate(assets))
+        mean, cov = self.log_performance_law(market, t)
+        mean_log = sum(w[i] * mean[i] for i in range(len(mean)))
         var = float(w @ cov @ w)
         df = float(market.discount.df(t))
         return float(cf.black_lognormal(math.exp(mean_log + 0.5 * var), self.strike_level,
