@@ -18,7 +18,9 @@ from fairpath.sampling import make_sampler
 KINDS = ("convergence", "distribution", "paths")
 
 
-def _axes(ax=None, figsize=(7, 4)):
+def new_axes(ax=None, figsize=(7, 4)):
+    """``(figure, axes)``: the given axes' figure, or a new figure closed to pyplot (every
+    plotting function in fairpath draws on this)."""
     if ax is not None:
         return ax.figure, ax
     from matplotlib import pyplot as plt
@@ -42,7 +44,7 @@ def plot_result(kind: str, product: Product, market: Market, settings: dict, res
 def convergence(product: Product, market: Market, settings: dict, *, start: int = 1024,
                 ax=None):
     """The estimate and its 95% interval at path counts doubling up to the run's."""
-    fig, ax = _axes(ax)
+    fig, ax = new_axes(ax)
     counts, est, lo, hi = [], [], [], []
     n = start
     top = settings.get("paths", 65536)
@@ -72,7 +74,7 @@ def convergence(product: Product, market: Market, settings: dict, *, start: int 
 def distribution(product: Product, market: Market, settings: dict, result=None, *,
                  paths: int = 16384, bins: int = 60, ax=None):
     """Histogram of the discounted payoffs of ``paths`` pseudo-random paths."""
-    fig, ax = _axes(ax)
+    fig, ax = new_axes(ax)
     smp = make_sampler("pseudo", seed=settings.get("seed"))
     sim = Simulation([product], market, smp, [[]])
     if sim.steps == 0:
@@ -92,7 +94,7 @@ def sample_paths(product: Product, market: Market, *, n: int = 100, seed: int | 
                  ax=None):
     """A fan of ``n`` sample paths (as performances for several assets) with the product's
     observation dates and barriers drawn on it."""
-    fig, ax = _axes(ax, figsize=(8, 4.5))
+    fig, ax = new_axes(ax, figsize=(8, 4.5))
     smp = make_sampler("pseudo", seed=seed)
     sim = Simulation([product], market, smp, [[]])
     if sim.steps == 0:
@@ -138,7 +140,7 @@ def _barriers(product: Product, several: bool, base) -> list[tuple[str, float]]:
 
 def greek_profile(profile, greek: str = "delta", asset: str | None = None, ax=None):
     """Plot one Greek (with its 95% band) over the spots of :func:`fairpath.greek_profile`."""
-    fig, ax = _axes(ax)
+    fig, ax = new_axes(ax)
     spots = [s for s, _ in profile]
     vals, errs = [], []
     for _, g in profile:
@@ -209,7 +211,7 @@ def shock_densities(laws, ax=None, *, labels=None, normal: bool = True, xmax: fl
         raise InputError("no laws to draw", key="laws")
     if labels is not None and len(labels) != len(laws):
         raise InputError(f"{len(labels)} labels for {len(laws)} laws", key="labels")
-    fig, ax = _axes(ax)
+    fig, ax = new_axes(ax)
     x = np.linspace(-xmax, xmax, points)
     if normal:
         ax.plot(x, stats.norm.pdf(x), color="k", linestyle="--", linewidth=1.0,
@@ -276,7 +278,7 @@ def horizon_returns(markets, asset: str, horizon, *, paths: int = 16384,
     markets = list(markets)
     if not markets:
         raise InputError("no markets to draw", key="markets")
-    fig, ax = _axes(ax)
+    fig, ax = new_axes(ax)
     edges = np.linspace(-6.0, 6.0, bins + 1)
     centres = 0.5 * (edges[:-1] + edges[1:])
     ax.plot(centres, stats.norm.pdf(centres), color="k", linestyle="--", linewidth=1.0,

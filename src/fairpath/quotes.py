@@ -428,7 +428,9 @@ class QuoteChecks(list):
             raise InputError("no priced quotes to plot")
         if units == "auto":
             units = "percent" if all(c.price != 0 for c in ok) else "band"
-        fig, ax = _new_axes(ax, figsize=(10, 1.8 + 0.45 * len(ok)))
+        from fairpath.plots import new_axes
+
+        fig, ax = new_axes(ax, figsize=(10, 1.8 + 0.45 * len(ok)))
         for i, c in enumerate(ok):
             if units == "percent":
                 scale = abs(c.price) / 100.0
@@ -457,16 +459,6 @@ class QuoteChecks(list):
                   borderaxespad=0.0)
         fig.tight_layout()
         return fig
-
-
-def _new_axes(ax=None, figsize=(7, 4)):
-    if ax is not None:
-        return ax.figure, ax
-    from matplotlib import pyplot as plt
-
-    fig, ax = plt.subplots(figsize=figsize)
-    plt.close(fig)  # shown by the notebook's display of the returned figure, not twice
-    return fig, ax
 
 
 # ---------------------------------------------------------------------------------------------
