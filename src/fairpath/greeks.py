@@ -342,11 +342,11 @@ def greeks(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
     first_var = GBM.from_market(market, names).steps(runner.sim.grid_times[:1]).variance[:, 0]
     odd_laws = market.non_normal(names)
     lognormal = market.lognormal(names)
-    use_lr = (method == "lr" or (method == "auto" and product.payoff_jumps)) and \
-        bool(np.all(first_var > 0)) and product.score_safe() and lognormal
-    if not use_lr and (method == "lr" or (method == "auto" and product.payoff_jumps)):
-        if not lognormal and (market.local_vol(names)
-                              or any(market.dividend_times(n) for n in names)):
+    escrow_or_smile = market.local_vol(names) or any(market.dividend_times(n) for n in names)
+    want_lr = method == "lr" or (method == "auto" and product.payoff_jumps)
+    use_lr = want_lr and bool(np.all(first_var > 0)) and product.score_safe() and lognormal
+    if want_lr and not use_lr:
+        if escrow_or_smile:
             why = ("the levels are not lognormal in today's spot (a volatility surface or cash "
                    "dividends), so the likelihood ratio's normal score does not apply")
         elif odd_laws:
@@ -360,7 +360,6 @@ def greeks(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
     notes.extend(div_notes)
     notes.extend(law_notes_for(market, names))
     notes.extend(model_notes(market, names, steps_per_day))
-    escrow_or_smile = market.local_vol(names) or any(market.dividend_times(n) for n in names)
     if use_pathwise and escrow_or_smile:
         use_pathwise = False
         notes.append("pathwise estimators need levels proportional to the spot and a flat "
