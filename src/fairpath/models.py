@@ -61,10 +61,10 @@ class LocalParams:
 
     dt: np.ndarray
     log_fwd: np.ndarray
-    table: np.ndarray  # (assets, steps, y points): step standard deviation
+    step_sd: np.ndarray  # (assets, steps, y points): local vol times sqrt(dt), tabulated
     y0: np.ndarray
     dy: np.ndarray
-    gbm_var: np.ndarray  # (assets, steps): the GBM assets' step standard deviation
+    gbm_sd: np.ndarray  # (assets, steps): the GBM assets' step standard deviation
     is_lv: np.ndarray
     corr: np.ndarray
     grid_cols: np.ndarray
@@ -143,26 +143,25 @@ class GBM:
         n_a, n_f = len(self.names), len(fine)
         log_fwd = np.stack([np.log(np.asarray(self.market.x_forward(n, np.concatenate(
             [[0.0], fine])), dtype=float)) for n in self.names])
-        table = np.zeros((n_a, n_f, Y_POINTS))
+        step_sd = np.zeros((n_a, n_f, Y_POINTS))
         y0, dy = np.zeros(n_a), np.ones(n_a)
-        gbm_var = np.zeros((n_a, n_f))
+        gbm_sd = np.zeros((n_a, n_f))
         is_lv = np.zeros(n_a, dtype=bool)
         floored = points = 0
         for i, n in enumerate(self.names):
             a = self.market.asset(n)
             if a.surface is not None:
                 lv = local_table(a.surface, starts)
-                # tabulated as the step's standard deviation: local vol times sqrt(dt)
-                table[i] = np.sqrt(lv.variance * dt[:, None])
+                step_sd[i] = np.sqrt(lv.variance * dt[:, None])
                 y0[i], dy[i] = lv.y0, lv.dy
                 is_lv[i] = True
                 floored += lv.floored
                 points += lv.points
             else:
-                gbm_var[i] = np.sqrt(integrate_vol_product(a.vol, a.vol, starts, fine))
+                gbm_sd[i] = np.sqrt(integrate_vol_product(a.vol, a.vol, starts, fine))
         corr = psd_cholesky(self.correlation)
         cols = np.arange(sub - 1, n_f, sub)
-        return LocalParams(dt, log_fwd, table, y0, dy, gbm_var, is_lv, corr, cols, floored,
+        return LocalParams(dt, log_fwd, step_sd, y0, dy, gbm_sd, is_lv, corr, cols, floored,
                            points), fine
 
     def _steps(self, times: np.ndarray) -> StepParameters:
@@ -221,7 +220,7 @@ def simulate_log_levels(params: StepParameters, spots: np.ndarray, z: np.ndarray
     start = params.log_start if params.log_start is not None else np.log(spots)
     if params.local is not None:
         lp = params.local
-        x = local_vol_paths(z, lp.corr, lp.log_fwd, lp.table, lp.y0, lp.dy, lp.gbm_var,
+        x = local_vol_paths(z, lp.corr, lp.log_fwd, lp.step_sd, lp.y0, lp.dy, lp.gbm_sd,
                             lp.is_lv, start)
         x = np.ascontiguousarray(x[:, :, lp.grid_cols])
     elif params.laws is not None:
