@@ -222,7 +222,8 @@ def simulate_log_levels(params: StepParameters, spots: np.ndarray, z: np.ndarray
         lp = params.local
         x = local_vol_paths(z, lp.corr, lp.log_fwd, lp.step_sd, lp.y0, lp.dy, lp.gbm_sd,
                             lp.is_lv, start)
-        x = np.ascontiguousarray(x[:, :, lp.grid_cols])
+        if len(lp.grid_cols) != x.shape[2]:  # finer than the grid: keep its dates only
+            x = np.ascontiguousarray(x[:, :, lp.grid_cols])
     elif params.laws is not None:
         x = _simulate_with_laws(params, start, z)
     else:
