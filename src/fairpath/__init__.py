@@ -6,12 +6,14 @@
 >>> fp.price(call, market, paths=65536, sampler="sobol", seed=7)   # doctest: +SKIP
 """
 
+from fairpath import plots  # noqa: E402,F401  (registers the drawing of results)
 from fairpath.book import BookSummary, price_book
 from fairpath.errors import FairpathError, FairpathWarning, InputError, SamplingWarning
 from fairpath.estimate import CAUTION, PriceResult, price, price_many
 from fairpath.greeks import GreekProfile, GreeksResult, greek_profile, greeks
 from fairpath.laws import EmpiricalLaw, Law, NormalLaw, StudentT
 from fairpath.market import Asset, Correlation, DiscountCurve, Market, VolCurve, load_market
+from fairpath.models import Model, ModelSet
 from fairpath.products import (
     REGISTRY,
     Asian,
@@ -32,7 +34,8 @@ __version__ = "0.1.0"
 __all__ = [
     "Asian", "Asset", "Autocallable", "Barrier", "Basket", "BookSummary", "CAUTION", "Correlation",
     "Digital", "DiscountCurve", "EmpiricalLaw", "European", "FairpathError", "FairpathWarning",
-    "Formula", "GreekProfile", "GreeksResult", "InputError", "Law", "Market", "NormalLaw",
+    "Formula", "GreekProfile", "GreeksResult", "InputError", "Law", "Market", "Model", "ModelSet",
+    "NormalLaw",
     "PriceResult", "Product", "QuoteCheck", "QuoteChecks", "REGISTRY", "SamplingWarning",
     "SolveResult", "StudentT", "VolCurve", "check_quote", "check_quotes", "greek_profile",
     "greeks", "load_market", "load_product", "price", "price_book", "price_many", "solve",

@@ -14,7 +14,7 @@ from dataclasses import dataclass
 from datetime import date, timedelta
 
 from fairpath.errors import InputError
-from fairpath.inputs import did_you_mean, show
+from fairpath.inputs import as_date, did_you_mean, show
 
 DAY_COUNTS = ("ACT/365F", "ACT/360")
 _TENOR = re.compile(r"^\s*(\d+)\s*([DWMY])\s*$", re.IGNORECASE)
@@ -158,19 +158,6 @@ def schedule_dates(spec: object, *, source: str | None = None, key: str | None =
             raise InputError(f"the schedule generates {b} twice after the weekend roll; use a "
                              "longer step or explicit dates", source=source, key=key)
     return tuple(out)
-
-
-def as_date(value: object, *, source: str | None = None, key: str | None = None) -> date:
-    """Accept a TOML date (``datetime.date``) or an ISO string ``YYYY-MM-DD``."""
-    if isinstance(value, date) and not hasattr(value, "hour"):
-        return value
-    if isinstance(value, str):
-        try:
-            return date.fromisoformat(value.strip())
-        except ValueError:
-            pass
-    raise InputError(f"expected a date like 2027-12-01, got {show(value)}", source=source,
-                     key=key)
 
 
 def year_fraction(start: date, end: date, day_count: str = "ACT/365F") -> float:

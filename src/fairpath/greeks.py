@@ -45,22 +45,14 @@ from datetime import timedelta
 import numpy as np
 
 from fairpath.dates import year_fraction
+from fairpath.engine import DEFAULT_PATHS, Settings, merge_all, prepare, run
 from fairpath.errors import InputError
-from fairpath.estimate import (
-    CAUTION,
-    DEFAULT_PATHS,
-    Moments,
-    Simulation,
-    check_law_tails,
-    last_date,
-    law_notes_for,
-    merge_all,
-    model_notes,
-)
 from fairpath.market import Market
-from fairpath.models import GBM, simulate_log_levels
+from fairpath.models import ModelSet
 from fairpath.products.base import PathSet, Product
-from fairpath.sampling import DEFAULT_REPLICATES, make_sampler
+from fairpath.registry import Capability, Shortcut, usable
+from fairpath.results import CAUTION
+from fairpath.sampling import DEFAULT_REPLICATES
 
 #: Relative spot bump (1% of spot), absolute vol bump (one vol point), rate bump (one basis
 #: point); theta moves the valuation date by one calendar day.
@@ -184,43 +176,8 @@ def _bump_vol(market: Market, name: str, dv: float) -> Market:
     return market.with_asset(dataclasses.replace(a, vol=vol, surface=surface))
 
 
-class _Scenarios:
-    """The base simulation's grid and normals, re-used under every bumped market."""
-
-    def __init__(self, product: Product, base: Market, markets: list[Market], sampler,
-                 source: str | None, steps_per_day: int = 1):
-        self.product = product
-        self.sim = Simulation([product], base, sampler, [[]], source, steps_per_day)
-        self.markets = markets
-        names = self.sim.names
-        dates = self.sim.grid_dates
-        self.setups = []
-        for m in markets:
-            times = np.array([max(m.time(d), 0.0) for d in dates]) if dates else np.zeros(0)
-            model = GBM.from_market(m, names)
-            params = model.steps(times, steps_per_day) if len(times) else None
-            self.setups.append((m, model.spots, times, params))
-
-    def values(self, z: np.ndarray, want_pathwise: bool, want_lr: bool
-               ) -> tuple[np.ndarray, dict]:
-        cols = []
-        pathwise: dict = {}
-        sim = self.sim
-        for j, (m, spots, times, params) in enumerate(self.setups):
-            x = simulate_log_levels(params, spots, z.copy())
-            first = x[:, :, 0].copy() if j == 0 and want_lr else None
-            ps = PathSet.from_log_levels(m, sim.names, sim.dates[0], sim.obs_index[0], spots,
-                                         sim.grid_dates, times, x, params.variance)
-            cols.append(np.asarray(self.product.payoff(ps), dtype=float))
-            if j == 0 and want_pathwise:
-                pathwise = self.product.pathwise(ps)
-            if first is not None:
-                pathwise.update(likelihood_ratio(cols[0], first, spots, params, sim.names))
-        return np.stack(cols, axis=1), pathwise
-
-
-def likelihood_ratio(y: np.ndarray, x1: np.ndarray, spots: np.ndarray, params,
-                     names: tuple[str, ...]) -> dict[str, np.ndarray]:
+def likelihood_ratio(y: np.ndarray, x1: np.ndarray, spots: np.ndarray, mean: np.ndarray,
+                     cov: np.ndarray, names: tuple[str, ...]) -> dict[str, np.ndarray]:
     """Likelihood-ratio (score) weights for delta and gamma from the first simulation step.
 
     The spots enter the path's density only through the first step's log-return, normal with
@@ -230,10 +187,8 @@ def likelihood_ratio(y: np.ndarray, x1: np.ndarray, spots: np.ndarray, params,
     Engineering", 2004, section 7.3). Unbiased for any payoff, jumps included; the variance grows
     as the first step shrinks.
     """
-    L = params.factor[0]
-    cov = L @ L.T
     inv = np.linalg.pinv(cov)
-    xi = x1 - np.log(spots)[None, :] - params.drift[:, 0][None, :]
+    xi = x1 - np.log(spots)[None, :] - mean[None, :]
     a = xi @ inv.T
     out = {}
     n = len(names)
@@ -253,7 +208,8 @@ def greeks(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
            sampler: str = "sobol", seed: int | None = None, method: str = "auto",
            antithetic: bool = False, replicates: int = DEFAULT_REPLICATES,
            cross_gamma: bool = True, source: str | None = None,
-           stream: tuple[int, ...] = (), steps_per_day: int = 1) -> GreeksResult:
+           stream: tuple[int, ...] = (), steps_per_day: int = 1,
+           threads: int | None = None) -> GreeksResult:
     """Delta, gamma (and cross-gammas), vega per asset, rho and theta, each with its error.
 
     Parameters
@@ -279,12 +235,13 @@ def greeks(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
         raise InputError(f"unknown method {method!r}; known: {', '.join(METHODS)}",
                          key="--method")
     source = source or product.source
+    settings = Settings(paths=paths, sampler=sampler, seed=seed, antithetic=antithetic,
+                        replicates=replicates, control=False, threads=threads,
+                        steps_per_day=steps_per_day, stream=stream)
+    settings.make_sampler()  # refuse bad sampler settings before anything else
     product.check(market, source)
     product = product.struck(market)
-    market, div_notes = market.dividend_horizon(product.underlyings(),
-                                                last_date([product], market))
-    smp = make_sampler(sampler, seed=seed, antithetic=antithetic, replicates=replicates,
-                       stream_key=stream)
+    market, div_notes = prepare([product], market, source)
     names = product.underlyings()
     notes: list[str] = []
     unused = [n for n in market.asset_names if n not in names]
@@ -334,57 +291,62 @@ def greeks(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
         scen.append(("t-1d", earlier))
     index = {lab: i for i, (lab, _) in enumerate(scen)}
 
-    runner = _Scenarios(product, market, [m for _, m in scen], smp, source, steps_per_day)
-    if runner.sim.steps == 0:
+    models = ModelSet.resolve(market, names, source=source)
+    caps = models.capabilities
+    use_pathwise = method in ("pathwise", "auto") and product.has_pathwise(market)
+    want_lr = method == "lr" or (method == "auto" and product.payoff_jumps)
+    lr_ok = usable(product.kind, Shortcut.LIKELIHOOD_RATIO, caps) and product.score_safe()
+    if use_pathwise and not usable(product.kind, Shortcut.PATHWISE, caps):
+        use_pathwise = False
+        notes.append("pathwise estimators need levels proportional to the spot and a flat "
+                     "vol (no surface, no cash dividends): delta and vega are bumped")
+    elif use_pathwise and Capability.FLAT_VOL not in caps:
+        notes.append("pathwise vega needs normal shocks and a flat vol: vega is bumped")
+    if method == "pathwise" and not use_pathwise:
+        notes.append(f"no pathwise estimator for {product.kind}: bump-and-revalue used")
+
+    def lr_applies(stepper) -> bool:
+        """The likelihood ratio from the first step: asked for, registered for the product
+        under these models, and the first step has variance in every asset."""
+        return (want_lr and lr_ok and stepper is not None and stepper.first_step() is not None
+                and bool(np.all(stepper.variance[:, 0] > 0)))
+
+    holder: dict = {}
+
+    def extras(j: int, ps: PathSet, payoff: np.ndarray, stepper) -> list[np.ndarray]:
+        """Pathwise derivatives and likelihood-ratio weights beside the base payoff, in a
+        fixed order of their names (the same on every batch and thread)."""
+        cols: dict[str, np.ndarray] = {}
+        if use_pathwise:
+            cols.update(product.pathwise(ps))
+        if lr_applies(stepper):
+            mean, cov = stepper.first_step()
+            first = ps.grid_log_levels[:, :, 0]
+            cols.update(likelihood_ratio(payoff, first, ps.spots, mean, cov, names))
+        keys = sorted(cols)
+        holder["names"] = keys
+        return [cols[k] for k in keys]
+
+    res = run([product], [m for _, m in scen], settings, source=source,
+              extras=extras if (use_pathwise or want_lr) else None)
+    if res.sim.steps == 0:
         raise InputError("nothing left to simulate: every level the payoff needs is known, so "
                          "the Greeks are those of a fixed amount", source=source)
-    use_pathwise = method in ("pathwise", "auto") and product.has_pathwise(market)
-    first_var = GBM.from_market(market, names).steps(runner.sim.grid_times[:1]).variance[:, 0]
-    odd_laws = market.non_normal(names)
-    lognormal = market.lognormal(names)
-    escrow_or_smile = market.local_vol(names) or any(market.dividend_times(n) for n in names)
-    want_lr = method == "lr" or (method == "auto" and product.payoff_jumps)
-    use_lr = want_lr and bool(np.all(first_var > 0)) and product.score_safe() and lognormal
-    if want_lr and not use_lr:
-        if escrow_or_smile:
-            why = ("the levels are not lognormal in today's spot (a volatility surface or cash "
-                   "dividends), so the likelihood ratio's normal score does not apply")
-        elif odd_laws:
-            why = "a shock law is not normal, so the normal score does not apply"
+    if want_lr and not lr_applies(res.sim.stepper):
+        if Capability.SCORE not in caps:
+            why = ("the model does not give the first step's law in today's spot (a "
+                   "volatility surface, cash dividends or a non-normal shock law), so the "
+                   "likelihood ratio's normal score does not apply")
         else:
             why = ("the first step has no variance or the payoff uses today's spot directly, "
                    "so the normal score does not apply")
         notes.append(f"no likelihood-ratio estimator here ({why}): delta and gamma are bumped")
-    if odd_laws:
-        check_law_tails(market, names, runner.sim.params.variance, paths)
     notes.extend(div_notes)
-    notes.extend(law_notes_for(market, names))
-    notes.extend(model_notes(market, names, steps_per_day))
-    if use_pathwise and escrow_or_smile:
-        use_pathwise = False
-        notes.append("pathwise estimators need levels proportional to the spot and a flat "
-                     "vol (no surface, no cash dividends): delta and vega are bumped")
-    elif use_pathwise and odd_laws:
-        notes.append("pathwise vega needs normal shocks: vega is bumped")
-    if method == "pathwise" and not use_pathwise:
-        notes.append(f"no pathwise estimator for {product.kind}: bump-and-revalue used")
-
-    blocks = smp.plan(paths)
-    moments: dict = {}
-    pw_names: list[str] = []
-    n_a = len(names)
-    for b in blocks:
-        z = smp.normals([b], n_a, runner.sim.sim_times)
-        v, pw = runner.values(z, use_pathwise, use_lr)
-        if pw:
-            pw_names = sorted(pw)
-            v = np.concatenate([v, np.stack([pw[k] for k in pw_names], axis=1)], axis=1)
-        if not np.all(np.isfinite(v)):
-            raise InputError("a bumped scenario gave non-finite values", source=source)
-        if smp.antithetic:
-            h = b.size // 2
-            v = 0.5 * (v[:h] + v[h:])
-        moments[b] = Moments.of(v)
+    notes.extend(res.notes)
+    smp = res.sampler
+    blocks = res.blocks
+    moments = res.moments(0)
+    pw_names: list[str] = list(holder.get("names", []))
 
     pooled = merge_all([moments[b] for b in blocks])
     if smp.replicates is not None:

@@ -159,8 +159,6 @@ class Table:
         value = self.raw(name, default)
         if value is None:
             return None  # type: ignore[return-value]
-        from fairpath.dates import as_date  # dates imports this module
-
         return as_date(value, source=self.source, key=self.key(name))
 
     def list(self, name: str, default: Any = _MISSING, *, nonempty: bool = True) -> list:
@@ -181,6 +179,19 @@ class Table:
             known = sorted(self._known)
             raise self.error(k, f"unknown key{did_you_mean(k, known)}; known keys here: "
                              f"{', '.join(known)}")
+
+
+def as_date(value: object, *, source: str | None = None, key: str | None = None) -> date:
+    """Accept a TOML date (``datetime.date``) or an ISO string ``YYYY-MM-DD``."""
+    if isinstance(value, date) and not hasattr(value, "hour"):
+        return value
+    if isinstance(value, str):
+        try:
+            return date.fromisoformat(value.strip())
+        except ValueError:
+            pass
+    raise InputError(f"expected a date like 2027-12-01, got {show(value)}", source=source,
+                     key=key)
 
 
 def did_you_mean(word: str, choices: Iterable[str]) -> str:

@@ -25,6 +25,7 @@ from fairpath.dates import DAY_COUNTS, parse_tenor, year_fraction
 from fairpath.errors import InputError
 from fairpath.inputs import MAX_AMOUNT, Table, did_you_mean, read_toml, show
 from fairpath.laws import NORMAL, Law, parse_law
+from fairpath.registry import known_models
 from fairpath.surface import VolSurface, parse_surface
 
 #: Tolerance on the smallest eigenvalue of a correlation matrix (rounding in hand-typed files).
@@ -185,6 +186,9 @@ class Asset:
     surface: VolSurface | None = None
     #: discrete cash dividends ``(ex_date, amount)``, escrowed (see :class:`Market`)
     dividends: tuple[tuple[date, float], ...] = ()
+    #: the model of its dynamics named by the file or a what-if (:mod:`fairpath.models`);
+    #: None: the default (local vol with a surface, Black otherwise)
+    model: str | None = None
 
     def __post_init__(self):
         divs = tuple(sorted((d, float(x)) for d, x in self.dividends))
@@ -297,25 +301,27 @@ class Market:
         f = self.escrowed_spot(name) * np.exp(-a.dividend_yield * t) / self.discount.df(t)
         return float(f) if f.ndim == 0 else f
 
-    def lognormal(self, names) -> bool:
-        """Are the named assets plain geometric Brownian motions (normal shocks, no surface,
-        no cash dividends to come), the model every closed form assumes?"""
-        for n in names:
-            a = self.asset(n)
-            if not a.law.is_normal or a.surface is not None or self.dividend_times(n):
-                return False
-        return True
-
     def local_vol(self, names) -> tuple[str, ...]:
-        """The named assets priced with local volatility (they have a surface)."""
+        """The named assets that have an implied-volatility surface."""
         return tuple(n for n in names if self.asset(n).surface is not None)
 
     def with_flat_vol(self, names=None) -> Market:
-        """The market with each surface replaced by its at-the-money term structure."""
+        """The market with each surface replaced by its at-the-money term structure (and the
+        model of those assets the default for what is left: Black)."""
         names = self.asset_names if names is None else tuple(names)
         return dataclasses.replace(self, assets=tuple(
-            dataclasses.replace(a, surface=None) if a.name in names else a
-            for a in self.assets))
+            dataclasses.replace(a, surface=None,
+                                model=None if a.model == "local-vol" else a.model)
+            if a.name in names else a for a in self.assets))
+
+    def with_model(self, kind: str, names=None, *, key: str = "--model") -> Market:
+        """The market with every asset's (or the named assets') model replaced (a what-if)."""
+        check_model_kind(kind, key=key)
+        names = self.asset_names if names is None else tuple(names)
+        for n in names:
+            self.asset(n)
+        return dataclasses.replace(self, assets=tuple(
+            dataclasses.replace(a, model=kind) if a.name in names else a for a in self.assets))
 
     def dividend_horizon(self, names, last: date) -> tuple[Market, list[str]]:
         """The market with the named assets' cash dividends outside ``(valuation, last]``
@@ -374,10 +380,6 @@ class Market:
             self.asset(n)
         return dataclasses.replace(self, assets=tuple(
             dataclasses.replace(a, law=law) if a.name in names else a for a in self.assets))
-
-    def non_normal(self, names) -> tuple[str, ...]:
-        """The named assets whose shock law is not normal."""
-        return tuple(n for n in names if not self.asset(n).law.is_normal)
 
 
 # ---------------------------------------------------------------------------------------------
@@ -469,11 +471,14 @@ def load_market(path: str | Path) -> Market:
             law = parse_law(a.raw("law"), base_dir=Path(src).parent, source=src,
                             key=a.key("law"))
         dividends = _dividends(a, valuation)
+        model = a.string("model", None)
+        if model is not None:
+            check_model_kind(model, source=src, key=a.key("model"))
         a.finish()
         if surface is not None and not law.is_normal:
             raise a.error("law", "a non-normal law and a volatility surface cannot be combined "
                           "(local volatility steps with normal shocks)")
-        asset = Asset(name, spot, vol, q, law, dividends=dividends)
+        asset = Asset(name, spot, vol, q, law, dividends=dividends, model=model)
         if surface is not None:
             asset = attach_surface(asset, surface, curve, source=src, key=a.key("vol_surface"))
         assets.append(asset)
@@ -514,6 +519,14 @@ def load_market(path: str | Path) -> Market:
                              "the level it applies to", source=src,
                              key=f"assets.{a.name}.dividends")
     return market
+
+
+def check_model_kind(kind: object, *, source: str | None = None, key: str | None = None) -> None:
+    """Refuse a model name that no model module registered (listing the known ones)."""
+    known = known_models()
+    if not isinstance(kind, str) or kind not in known:
+        raise InputError(f"unknown model {show(kind)}{did_you_mean(str(kind), known)}; known: "
+                         f"{', '.join(known)}", source=source, key=key)
 
 
 def _rate(tab: Table, name: str, value) -> float:

@@ -7,12 +7,16 @@ estimates under stated assumptions, like the numbers they draw.
 
 from __future__ import annotations
 
+import dataclasses
+
 import numpy as np
 
+from fairpath.engine import Settings, Simulation
 from fairpath.errors import InputError
-from fairpath.estimate import Simulation, price
+from fairpath.estimate import price_run
 from fairpath.market import Market
 from fairpath.products.base import Product
+from fairpath.results import PLOTTERS
 from fairpath.sampling import make_sampler
 
 KINDS = ("convergence", "distribution", "paths")
@@ -30,29 +34,32 @@ def new_axes(ax=None, figsize=(7, 4)):
     return fig, ax
 
 
-def plot_result(kind: str, product: Product, market: Market, settings: dict, result,
-                **kwargs):
+def plot_result(result, kind: str = "convergence", **kwargs):
+    """A picture of a price result (``PriceResult.plot`` calls this): ``"convergence"``,
+    ``"distribution"`` or ``"paths"``, re-simulated with the result's own product, market and
+    settings (the same sampler, seed, controls and steps per day)."""
+    product, market, settings = result.context
     if kind == "convergence":
         return convergence(product, market, settings, **kwargs)
     if kind == "distribution":
         return distribution(product, market, settings, result, **kwargs)
     if kind == "paths":
-        return sample_paths(product, market, **kwargs)
+        return sample_paths(product, market, steps_per_day=settings.steps_per_day, **kwargs)
     raise InputError(f"unknown plot {kind!r}; known: {', '.join(KINDS)}", key="kind")
 
 
-def convergence(product: Product, market: Market, settings: dict, *, start: int = 1024,
+PLOTTERS["result"] = plot_result
+
+
+def convergence(product: Product, market: Market, settings: Settings, *, start: int = 1024,
                 ax=None):
     """The estimate and its 95% interval at path counts doubling up to the run's."""
     fig, ax = new_axes(ax)
     counts, est, lo, hi = [], [], [], []
     n = start
-    top = settings.get("paths", 65536)
-    replicates = settings.get("replicates", 16)
+    top = settings.paths
     while n <= top:
-        r = price(product, market, paths=n, sampler=settings.get("sampler", "sobol"),
-                  seed=settings.get("seed"), antithetic=settings.get("antithetic", False),
-                  control=settings.get("control", True), replicates=replicates)
+        r = price_run([product], market, dataclasses.replace(settings, paths=n))[0]
         counts.append(n)
         est.append(r.price)
         lo.append(r.ci95[0])
@@ -71,12 +78,12 @@ def convergence(product: Product, market: Market, settings: dict, *, start: int 
     return fig
 
 
-def distribution(product: Product, market: Market, settings: dict, result=None, *,
+def distribution(product: Product, market: Market, settings: Settings, result=None, *,
                  paths: int = 16384, bins: int = 60, ax=None):
     """Histogram of the discounted payoffs of ``paths`` pseudo-random paths."""
     fig, ax = new_axes(ax)
-    smp = make_sampler("pseudo", seed=settings.get("seed"))
-    sim = Simulation([product], market, smp, [[]])
+    smp = make_sampler("pseudo", seed=settings.seed)
+    sim = Simulation([product], market, smp, [[]], steps_per_day=settings.steps_per_day)
     if sim.steps == 0:
         raise InputError("nothing to simulate: the payoff is already known")
     values = sim.payoff_samples(smp.plan(paths))
@@ -91,12 +98,12 @@ def distribution(product: Product, market: Market, settings: dict, result=None, 
 
 
 def sample_paths(product: Product, market: Market, *, n: int = 100, seed: int | None = None,
-                 ax=None):
+                 steps_per_day: int = 1, ax=None):
     """A fan of ``n`` sample paths (as performances for several assets) with the product's
     observation dates and barriers drawn on it."""
     fig, ax = new_axes(ax, figsize=(8, 4.5))
     smp = make_sampler("pseudo", seed=seed)
-    sim = Simulation([product], market, smp, [[]])
+    sim = Simulation([product], market, smp, [[]], steps_per_day=steps_per_day)
     if sim.steps == 0:
         raise InputError("nothing to simulate: the payoff is already known")
     block = smp.plan(max(n, 2))[0]

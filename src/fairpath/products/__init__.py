@@ -8,6 +8,12 @@ from fairpath.products.basket import Basket
 from fairpath.products.formula import Formula
 from fairpath.products.loader import load_product, product_from_dict
 from fairpath.products.vanilla import Digital, European
+from fairpath.registry import Capability, Shortcut, register_shortcut
+
+# The likelihood-ratio (score) Greeks weight any payoff by the first step's score: every family
+# has them where the model declares the score.
+for _kind in REGISTRY:
+    register_shortcut(_kind, Shortcut.LIKELIHOOD_RATIO, {Capability.SCORE})
 
 __all__ = [
     "Asian", "Autocallable", "Barrier", "Basket", "ControlVariate", "Digital", "European",

@@ -46,6 +46,7 @@ from fairpath.products.base import (
     single_asset_quantity,
 )
 from fairpath.products.vanilla import RIGHTS
+from fairpath.registry import Capability, Shortcut, register_shortcut
 
 AVERAGES = ("arithmetic", "geometric")
 
@@ -185,17 +186,19 @@ class Asian(Product):
         return np.maximum(intrinsic, 0.0) * ps.df(self.expiry)
 
     def payoff(self, paths: PathSet) -> np.ndarray:
-        if self.conditional(paths.market):
+        if self.conditional(paths):
             return self._conditional_payoff(paths) * self.quantity
         return self._payoff(paths, self.average == "geometric") * self.quantity
 
     def raw_payoff(self, paths: PathSet) -> np.ndarray:
         return self._payoff(paths, self.average == "geometric") * self.quantity
 
-    def conditional(self, market: Market) -> bool:
+    def conditional(self, paths: PathSet) -> bool:
         """Is the arithmetic average integrated along the geometric average analytically?
-        (Fixed strike, normal shocks, some future fixing with variance.)"""
-        if self.average != "arithmetic" or self.floating or not market.lognormal((self.asset,)):
+        (Fixed strike, lognormal levels, some future fixing with variance.)"""
+        market = paths.market
+        if self.average != "arithmetic" or self.floating or \
+                not paths.allows(self, Shortcut.CONDITIONAL):
             return False
         t = [market.time(d) for d in self.future_fixings]
         return bool(t) and max(t) > 0 and float(market.asset(self.asset).vol.variance(
@@ -277,3 +280,8 @@ class Asian(Product):
         if self.past_fixings:
             return (f"{len(self.past_fixings)} of {len(self.fixings)} fixings already set",)
         return ()
+
+
+register_shortcut(Asian.kind, Shortcut.CONDITIONAL, {Capability.LOGNORMAL})
+register_shortcut(Asian.kind, Shortcut.CLOSED_FORM, {Capability.LOGNORMAL})
+register_shortcut(Asian.kind, Shortcut.PATHWISE, {Capability.SPOT_SCALING})

@@ -50,6 +50,7 @@ from fairpath.products.base import (
     read_asset_names,
     read_initial_levels,
 )
+from fairpath.registry import Capability, Shortcut, register_shortcut
 
 #: Levels between this and 1000 are refused as not fractions of the initial level (a
 #: percentage typed as 70); a huge level (1e6) is the way to write "never" or "always".
@@ -295,9 +296,13 @@ class Autocallable(Product):
                        + (f", {self.coupons_owed} coupon(s) owed" if self.coupons_owed else ""))
         if self.breached_now(market):
             out.append("the protection barrier is already breached (knocked in)")
-        elif self.protection_monitoring == "continuous" and not market.lognormal(self.assets):
-            out.append(BRIDGE_UNDER_LAW)
         return tuple(out)
+
+    def model_notes(self, capabilities) -> tuple[str, ...]:
+        if self.protection_monitoring == "continuous" and \
+                Capability.EXACT_BRIDGE not in capabilities:
+            return (BRIDGE_UNDER_LAW,)
+        return ()
 
     # -- payoff ----------------------------------------------------------------------------
     def _evaluate(self, ps: PathSet, want_diagnostics: bool):
@@ -385,3 +390,6 @@ class Autocallable(Product):
 
     def diagnostics(self, paths: PathSet) -> dict[str, np.ndarray]:
         return self._evaluate(paths, True)[1]
+
+
+register_shortcut(Autocallable.kind, Shortcut.EXACT_BRIDGE, {Capability.EXACT_BRIDGE})

@@ -42,6 +42,7 @@ from fairpath.laws import BRIDGE_UNDER_LAW
 from fairpath.market import Market
 from fairpath.products.base import ControlVariate, PathSet, check_horizon
 from fairpath.products.vanilla import OneAssetAtExpiry, _bsm_args
+from fairpath.registry import Capability, Shortcut, register_shortcut
 
 DIRECTIONS = ("down", "up")
 EFFECTS = ("out", "in")
@@ -137,8 +138,6 @@ class Barrier(OneAssetAtExpiry):
     def notes(self, market: Market) -> tuple[str, ...]:
         spot = market.asset(self.asset).spot
         if not self.breached(spot):
-            if self.monitoring == "continuous" and not market.lognormal((self.asset,)):
-                return (BRIDGE_UNDER_LAW,)
             return ()
         side = "at or below" if self.direction == "down" else "at or above"
         if self.effect == "in":
@@ -146,6 +145,11 @@ class Barrier(OneAssetAtExpiry):
                     "priced as the vanilla",)
         return (f"spot {spot:g} is {side} the barrier {self.barrier:g}: already knocked out, "
                 f"worth its rebate {self.rebate:g} paid now",)
+
+    def model_notes(self, capabilities) -> tuple[str, ...]:
+        if self.monitoring == "continuous" and Capability.EXACT_BRIDGE not in capabilities:
+            return (BRIDGE_UNDER_LAW,)
+        return ()
 
     def score_safe(self) -> bool:
         return self.monitoring != "continuous"  # the first bridge step starts from the spot
@@ -315,3 +319,7 @@ def expected_discount_at_hit(a: np.ndarray, b: np.ndarray, v: np.ndarray,
     steady = (v == 0) & (a > 0)
     frac[:, steady] = (a / (a + b))[steady]
     return _GL_W @ np.exp(-np.asarray(rate_dt)[None, :] * frac)
+
+
+register_shortcut(Barrier.kind, Shortcut.CLOSED_FORM, {Capability.LOGNORMAL})
+register_shortcut(Barrier.kind, Shortcut.EXACT_BRIDGE, {Capability.EXACT_BRIDGE})

@@ -19,6 +19,7 @@ import numpy as np
 from fairpath.errors import InputError
 from fairpath.inputs import MAX_AMOUNT, did_you_mean, show
 from fairpath.market import Market
+from fairpath.registry import Capability, Shortcut, usable
 
 #: kind name -> product class
 REGISTRY: dict[str, type[Product]] = {}
@@ -52,7 +53,11 @@ class PathSet:
         dates); ``grid_levels`` gives the levels themselves (computed on each call).
     variance : ndarray, shape (assets, grid dates)
         Integrated variance of each asset's log-level over each grid step (the first step starts
-        on the valuation date).
+        on the valuation date): exact where ``capabilities`` has ``EXACT_BRIDGE``, else the
+        model's approximation.
+    capabilities : frozenset of Capability
+        What every model of these assets declares about the paths (see
+        :mod:`fairpath.registry`); a payoff uses a shortcut only where :meth:`allows` says so.
     """
 
     market: Market
@@ -64,6 +69,7 @@ class PathSet:
     grid_times: np.ndarray
     grid_log_levels: np.ndarray
     variance: np.ndarray
+    capabilities: frozenset[Capability] = frozenset()
 
     @property
     def n(self) -> int:
@@ -71,7 +77,8 @@ class PathSet:
 
     @classmethod
     def from_log_levels(cls, market: Market, names, dates, obs_index, spots, grid_dates,
-                        grid_times, log_levels: np.ndarray, variance: np.ndarray) -> PathSet:
+                        grid_times, log_levels: np.ndarray, variance: np.ndarray,
+                        capabilities: frozenset[Capability] = frozenset()) -> PathSet:
         """A path set from simulated log-levels on the grid; ``obs_index`` gives each
         observation date's grid column (-1: the valuation date, at the spots)."""
         n = log_levels.shape[0]
@@ -82,7 +89,12 @@ class PathSet:
             else:
                 np.exp(log_levels[:, :, g], out=levels[:, :, k])
         return cls(market, tuple(names), tuple(dates), levels, spots, tuple(grid_dates),
-                   grid_times, log_levels, variance)
+                   grid_times, log_levels, variance, frozenset(capabilities))
+
+    def allows(self, product: Product, shortcut: Shortcut) -> bool:
+        """May ``product`` use ``shortcut`` on these paths (registered for its kind, and every
+        capability it needs declared by the models)?"""
+        return usable(product.kind, shortcut, self.capabilities)
 
     @property
     def grid_levels(self) -> np.ndarray:
@@ -139,9 +151,15 @@ class ControlVariate:
     name: str
     values: Callable[[PathSet], np.ndarray]
     mean: float
-    #: is the known mean right under any shock law (a discounted forward), not only under
-    #: normal returns (a closed form)? Controls that are not are dropped for other laws.
+    #: is the known mean right under any model that reprices the forward (a discounted
+    #: forward), not only under lognormal levels (a closed form)?
     model_free: bool = False
+
+    @property
+    def requires(self) -> frozenset[Capability]:
+        """The capabilities the known mean rests on: the engine keeps the control only where
+        every model of the product's assets declares them."""
+        return frozenset({Capability.FORWARD} if self.model_free else {Capability.LOGNORMAL})
 
 
 @dataclass(frozen=True, slots=True)
@@ -229,6 +247,22 @@ class Product:
         """Remarks on the trade's state to show beside its price (e.g. a barrier already hit)."""
         return ()
 
+    def model_notes(self, capabilities: frozenset[Capability]) -> tuple[str, ...]:
+        """Remarks on how the product is priced under models with these capabilities (e.g. an
+        approximate Brownian bridge)."""
+        return ()
+
+    # -- two phases (early exercise and other fitted policies) ---------------------------
+    def pilot_paths(self) -> int:
+        """Paths this product needs, before pricing, to fit what it decides on the paths (an
+        exercise policy); 0: none (the default)."""
+        return 0
+
+    def fit(self, pilot: PathSet) -> Product:
+        """The product with its policy fitted on ``pilot`` paths (drawn from a stream of their
+        own) and frozen: every thread and scenario of the run prices the returned product."""
+        return self
+
     def payoff(self, paths: PathSet) -> np.ndarray:
         """Discounted cash of every path, shape (paths,), quantity included."""
         raise NotImplementedError
@@ -257,9 +291,12 @@ class Product:
         return None
 
     def reference(self, market: Market) -> float | None:
-        """The closed form when it applies to this market: none when one of the product's
-        assets has a non-normal shock law (the formulas assume normal returns)."""
-        if not market.lognormal(self.underlyings()):
+        """The closed form when it applies to this market: registered for the product's kind
+        and every model of its assets declaring what it needs (lognormal levels)."""
+        from fairpath.models import ModelSet
+
+        caps = ModelSet.resolve(market, self.underlyings()).capabilities
+        if not usable(self.kind, Shortcut.CLOSED_FORM, caps):
             return None
         return self.closed_form(market)
 
@@ -270,14 +307,14 @@ class Product:
 def level_sensitivities(ps: PathSet) -> tuple[np.ndarray, np.ndarray | None]:
     """Derivatives of the levels on the observation dates, shape (paths, assets, dates).
 
-    ``dS_t/dS_0 = S_t / S_0`` (any vol term structure or shock law); when every asset's vol is
-    flat and its shocks normal,
+    ``dS_t/dS_0 = S_t / S_0`` where the models declare ``SPOT_SCALING`` (any vol term structure
+    or shock law); where they also declare ``FLAT_VOL`` and ``LOGNORMAL``,
     ``dS_t/dsigma = S_t (W_t - sigma t)`` with ``W_t = (log S_t - log F_t + sigma^2 t / 2) / sigma``
     recovered from the path (else None).
     """
     d_spot = ps.levels / ps.spots[None, :, None]
     vols = [ps.market.asset(n).vol for n in ps.names]
-    if not all(v.is_flat and v.vols[0] > 0 for v in vols) or not ps.market.lognormal(ps.names):
+    if not {Capability.FLAT_VOL, Capability.LOGNORMAL} <= ps.capabilities:
         return d_spot, None
     t = np.array([max(ps.market.time(d), 0.0) for d in ps.dates])
     sig = np.array([v.vols[0] for v in vols])[None, :, None]

@@ -45,6 +45,7 @@ from fairpath.products.base import (
     read_initial_levels,
 )
 from fairpath.products.vanilla import RIGHTS
+from fairpath.registry import Capability, Shortcut, register_shortcut
 
 COMBINES = ("worst", "best", "average")
 #: Strikes (as multiples of the basket's) of the pair controls when the last asset is
@@ -193,7 +194,8 @@ class Basket(Product):
         return self._option(level) * (paths.df(self.expiry) * self.notional)
 
     def payoff(self, paths: PathSet) -> np.ndarray:
-        law = _terminal_law(self, paths.market)
+        law = _terminal_law(self, paths.market) if paths.allows(self, Shortcut.CONDITIONAL) \
+            else None
         if law is None:
             return self.raw_payoff(paths)
         return self._conditional(paths, *law) * (paths.df(self.expiry) * self.notional)
@@ -216,12 +218,13 @@ class Basket(Product):
         return mean, cov
 
     def terminal_law(self, market: Market):
-        """Mean and covariance of the log-performances at expiry (jointly normal under normal
-        shocks), or None when the last asset cannot be integrated analytically (one asset,
-        a non-normal law, nothing left to simulate, or no variance left to integrate)."""
+        """Mean and covariance of the log-performances at expiry (jointly normal under lognormal
+        levels: used only where the models declare it), or None when the last asset cannot be
+        integrated analytically (one asset, nothing left to simulate, or no variance left to
+        integrate)."""
         n = len(self.assets)
         t = market.time(self.expiry)
-        if n < 2 or t <= 0 or not market.lognormal(self.assets):
+        if n < 2 or t <= 0:
             return None
         if self.combine == "average" and not self.basket_weights[-1] > 0:
             return None  # the last asset does not enter the basket
@@ -394,3 +397,8 @@ class Basket(Product):
 def _terminal_law(basket: Basket, market: Market):
     """:meth:`Basket.terminal_law`, kept per basket and market (both frozen values)."""
     return basket.terminal_law(market)
+
+
+register_shortcut(Basket.kind, Shortcut.CONDITIONAL, {Capability.LOGNORMAL})
+register_shortcut(Basket.kind, Shortcut.CLOSED_FORM, {Capability.LOGNORMAL})
+register_shortcut(Basket.kind, Shortcut.PATHWISE, {Capability.SPOT_SCALING})

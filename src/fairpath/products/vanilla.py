@@ -18,6 +18,7 @@ from fairpath.products.base import (
     pathwise_from_gradient,
     single_asset_quantity,
 )
+from fairpath.registry import Capability, Shortcut, register_shortcut
 
 RIGHTS = ("call", "put")
 
@@ -148,3 +149,7 @@ def _vanilla_from_table(cls, tab):
         kwargs["payout"] = tab.number("payout", 1.0, limit=MAX_AMOUNT)
     return kwargs
 
+
+register_shortcut(European.kind, Shortcut.CLOSED_FORM, {Capability.LOGNORMAL})
+register_shortcut(European.kind, Shortcut.PATHWISE, {Capability.SPOT_SCALING})
+register_shortcut(Digital.kind, Shortcut.CLOSED_FORM, {Capability.LOGNORMAL})

@@ -1,0 +1,705 @@
+"""The engine: every computation (a price, Greeks, a quote band, a solve, a book) is one
+:func:`run` of products under scenarios with one set of settings.
+
+A *scenario* is a market (a bumped one, or one whose assets have another model); all scenarios
+of a run are simulated from the same random numbers (common random numbers) on the grid of the
+first, on every core, in memory-bounded batches, with the Sobol fallback and the models'
+numerical checks. A run returns per-block moments; :func:`combine` turns them into a price and
+its error, and the callers (:mod:`fairpath.estimate`, :mod:`fairpath.greeks`) into results.
+
+Accumulation is per *block* (see :mod:`fairpath.sampling`): each block keeps its sample count,
+mean vector and centred cross-product matrix of ``[payoff, control_1, ..., control_m]`` (with
+several scenarios: each scenario's payoff, then any extra per-path estimators such as pathwise
+derivatives); blocks are merged in a fixed order (Chan et al.'s pairwise update), so the result
+does not depend on how many blocks were simulated together.
+
+Standard errors:
+
+* pseudo-random: the sample standard deviation of the (controlled) per-path values over
+  ``sqrt(N)``; the 95% interval uses the normal quantile;
+* Sobol (randomized QMC): the spread of the ``R`` independent scramblings' estimates,
+  ``std / sqrt(R)``; the 95% interval uses Student's t with ``R - 1`` degrees of freedom;
+* antithetic pairs count as one sample (the mean of the pair).
+
+Control variates: the coefficient ``b`` is the least-squares slope of the payoff on the controls
+from the same run (pooled over all samples); the controlled estimate is
+``mean(Y) - b . (mean(X) - E[X])``. The variance reduction factor is the ratio of the uncontrolled
+to the controlled variance; a control that does not reduce the variance is switched off and the
+result says so. A control is used only where every model of the product's assets declares the
+capabilities its known mean rests on (``ControlVariate.requires``).
+
+Two phases: a product that needs pilot paths (``Product.pilot_paths() > 0``, e.g. to fit an
+exercise policy) is handed them from a random stream of their own before pricing, returns a
+frozen product (``Product.fit``), and that product is what every thread and scenario prices.
+"""
+
+from __future__ import annotations
+
+import math
+import os
+import threading
+import warnings
+from collections.abc import Callable
+from concurrent.futures import ThreadPoolExecutor
+from dataclasses import dataclass, field
+from datetime import date
+
+import numpy as np
+from scipy import stats
+
+from fairpath.dates import weekdays_between
+from fairpath.errors import FairpathError, InputError, SamplingWarning
+from fairpath.kernels import merge_moments, moments
+from fairpath.market import Market
+from fairpath.models import ModelSet
+from fairpath.products.base import ControlVariate, PathSet, Product
+from fairpath.registry import Capability
+from fairpath.results import Estimate
+from fairpath.sampling import (
+    DEFAULT_REPLICATES,
+    SOBOL_MAX_DIM,
+    Block,
+    Sampler,
+    make_sampler,
+)
+
+#: Bytes of simulated state per chunk (normals, log levels); keeps memory flat in the path count.
+CHUNK_BYTES = 32 * 1024 * 1024
+#: Paths simulated together at most (cache-friendly batches), unless chunk_paths says otherwise
+MAX_BATCH = 1 << 17
+#: Default and maximum path counts.
+DEFAULT_PATHS = 65536
+DEFAULT_MAX_PATHS = 1 << 22
+#: The extra key of the pilot paths' random stream (never a block index of a pricing run)
+PILOT_STREAM = 0x7FFFFFFF
+#: Pilot paths handed to a product that asks for them without saying how many
+DEFAULT_PILOT_PATHS = 1 << 14
+
+
+@dataclass(frozen=True, slots=True)
+class Settings:
+    """Everything about a run that is not the products or the market: one frozen value.
+
+    ``threads`` and ``chunk_paths`` never change a number; ``stream`` is an extra key of every
+    random stream (a book gives each trade its own numbers this way)."""
+
+    paths: int = DEFAULT_PATHS
+    sampler: str = "sobol"
+    seed: int | None = None
+    antithetic: bool = False
+    replicates: int = DEFAULT_REPLICATES
+    control: bool = True
+    threads: int | None = None
+    steps_per_day: int = 1
+    chunk_paths: int | None = None
+    stream: tuple[int, ...] = ()
+    progress: bool = False
+
+    def make_sampler(self) -> Sampler:
+        return make_sampler(self.sampler, seed=self.seed, antithetic=self.antithetic,
+                            replicates=self.replicates, stream_key=self.stream)
+
+
+#: Below this many simulated numbers (paths x assets x steps) a run stays on one thread: the
+#: pool's coordination would cost more than it saves (measured: a 1,024-path European took
+#: 5 ms on two threads and 2 ms on one).
+THREAD_WORK = 1 << 17
+_POOLS: dict[int, ThreadPoolExecutor] = {}
+_POOLS_LOCK = threading.Lock()
+
+
+def _pool(workers: int) -> ThreadPoolExecutor:
+    """A long-lived pool of ``workers`` threads (created once; threads are daemons)."""
+    with _POOLS_LOCK:
+        pool = _POOLS.get(workers)
+        if pool is None:
+            pool = _POOLS[workers] = ThreadPoolExecutor(max_workers=workers,
+                                                        thread_name_prefix="fairpath")
+        return pool
+
+
+def engine_threads(threads: int | None = None) -> int:
+    """Threads for a simulation: the argument, else the ``FAIRPATH_THREADS`` environment
+    variable, else every core. Results never depend on it."""
+    if threads is None:
+        env = os.environ.get("FAIRPATH_THREADS", "").strip()
+        if env:
+            try:
+                threads = int(env)
+            except ValueError:
+                raise InputError(f"must be a positive integer, got {env!r}",
+                                 key="FAIRPATH_THREADS") from None
+        else:
+            threads = os.cpu_count() or 1
+    if isinstance(threads, bool) or not isinstance(threads, int) or threads < 1:
+        raise InputError(f"must be a positive integer, got {threads!r}", key="threads")
+    return threads
+
+
+# ---------------------------------------------------------------------------------------------
+# Per-block statistics
+# ---------------------------------------------------------------------------------------------
+@dataclass(frozen=True, slots=True)
+class Moments:
+    """Count, mean vector and centred cross-products of a set of samples."""
+
+    n: int
+    mean: np.ndarray
+    m2: np.ndarray
+
+    @classmethod
+    def of(cls, v: np.ndarray) -> Moments:
+        # a compiled two-pass loop in row order: the same arithmetic for any chunking
+        mean, m2 = moments(v)
+        return cls(v.shape[0], mean, m2)
+
+    def merge(self, other: Moments) -> Moments:
+        n = self.n + other.n
+        delta = other.mean - self.mean
+        mean = self.mean + delta * (other.n / n)
+        m2 = self.m2 + other.m2 + np.outer(delta, delta) * (self.n * other.n / n)
+        return Moments(n, mean, m2)
+
+    def cov(self) -> np.ndarray:
+        return self.m2 / max(self.n - 1, 1)
+
+
+def merge_all(parts: list[Moments]) -> Moments:
+    """The moments of the union of ``parts``, merged in their order (a compiled loop)."""
+    if len(parts) == 1:
+        return parts[0]
+    n, mean, m2 = merge_moments(np.array([p.n for p in parts], dtype=np.int64),
+                                np.stack([p.mean for p in parts]),
+                                np.stack([p.m2 for p in parts]))
+    return Moments(n, mean, m2)
+
+
+# ---------------------------------------------------------------------------------------------
+# Simulation of products under scenarios on shared random numbers
+# ---------------------------------------------------------------------------------------------
+@dataclass(frozen=True, slots=True)
+class BlockResult:
+    """One block's moments per product, and the sums of each product's diagnostics."""
+
+    moments: tuple[Moments, ...]
+    diagnostics: tuple[dict[str, float], ...]
+    #: per product, the number of paths whose discounted payoff is not zero
+    paying: tuple[int, ...] = ()
+
+
+#: ``extras(j, pathset, payoff, stepper) -> list of per-path arrays``: further estimators
+#: accumulated beside product ``j``'s values under the first scenario (pathwise derivatives,
+#: likelihood-ratio weights); they must be the same number of columns on every batch
+Extras = Callable[[int, PathSet, np.ndarray, object], list]
+
+
+@dataclass(frozen=True, slots=True)
+class ScenarioSetup:
+    """One scenario's market, models, grid times and stepper."""
+
+    market: Market
+    models: ModelSet
+    times: np.ndarray
+    stepper: object | None
+
+    @property
+    def spots(self) -> np.ndarray:
+        return self.models.spots
+
+    @property
+    def capabilities(self) -> frozenset[Capability]:
+        return self.models.capabilities
+
+
+class Simulation:
+    """Everything fixed for products under scenarios: grid, models, steppers, controls.
+
+    Several products on the same assets share the grid (the union of their dates) and the random
+    numbers, so their prices are evaluated on common paths (used by the solver); several
+    scenarios (bumped markets) share the first scenario's grid dates and normals (Greeks,
+    quote bands).
+    """
+
+    def __init__(self, products: list[Product], market, sampler: Sampler,
+                 controls: list[list[ControlVariate]], source: str | None = None,
+                 steps_per_day: int = 1, extras: Extras | None = None):
+        self.products = list(products)
+        scenarios = list(market) if isinstance(market, list | tuple) else [market]
+        self.market = market = scenarios[0]
+        self.sampler = sampler
+        self.controls = controls
+        self.extras = extras
+        self.names = self.products[0].underlyings()
+        for p in self.products[1:]:
+            if p.underlyings() != self.names:
+                raise InputError("products priced together must use the same assets")
+        self.models = ModelSet.resolve(market, self.names, source=source)
+        val = market.valuation_date
+        future: set[date] = set()
+        for p in self.products:
+            future.update(d for d in p.observation_dates() if d > val)
+            daily = p.daily_until()
+            if daily is not None:
+                future.update(weekdays_between(val, daily))
+        if future and self.models.daily:
+            # a law of daily shocks, a local vol that moves with the level: every weekday
+            future.update(weekdays_between(val, max(future)))
+        self.grid_dates = tuple(sorted(future))
+        pos = {d: i for i, d in enumerate(self.grid_dates)}
+        # per product: its dates and their grid columns (-1 = on the valuation date: the spot)
+        self.dates = [tuple(p.observation_dates()) for p in self.products]
+        self.obs_index = [np.array([pos.get(d, -1) for d in ds], dtype=int) for ds in self.dates]
+        self.steps_per_day = steps_per_day
+        self.setups = [self._setup(m, i == 0, source) for i, m in enumerate(scenarios)]
+        base = self.setups[0]
+        self.grid_times = base.times
+        self.stepper = base.stepper
+        #: the times the sampler draws for (finer than the grid under local volatility)
+        self.sim_times = self.stepper.sim_times if self.stepper is not None else self.grid_times
+        self.spots = base.spots
+        self.factors = self.models.factors
+
+    def _setup(self, m: Market, first: bool, source: str | None) -> ScenarioSetup:
+        dates = self.grid_dates
+        if first:
+            times = np.atleast_1d(m.time(dates)).astype(float) if dates else np.zeros(0)
+            models = self.models
+        else:
+            times = np.array([max(m.time(d), 0.0) for d in dates]) if dates else np.zeros(0)
+            models = ModelSet.resolve(m, self.names, source=source)
+        stepper = models.stepper(times, self.steps_per_day) if len(dates) else None
+        return ScenarioSetup(m, models, times, stepper)
+
+    @property
+    def steps(self) -> int:
+        """Simulated steps (the grid's dates, or more under local volatility)."""
+        return len(self.sim_times)
+
+    @property
+    def capabilities(self) -> frozenset[Capability]:
+        return self.models.capabilities
+
+    def pathsets(self, log_levels: np.ndarray, setup: ScenarioSetup | None = None
+                 ) -> list[PathSet]:
+        s = setup or self.setups[0]
+        var = s.stepper.variance if s.stepper is not None else np.zeros((len(self.names), 0))
+        return [PathSet.from_log_levels(s.market, self.names, dates, index, s.spots,
+                                        self.grid_dates, s.times, log_levels, var,
+                                        s.capabilities)
+                for dates, index in zip(self.dates, self.obs_index, strict=True)]
+
+    @staticmethod
+    def sample_values(product: Product, controls: list[ControlVariate], ps: PathSet,
+                      payoff: np.ndarray | None = None) -> np.ndarray:
+        """(paths, 1 + controls): discounted payoff, then each control's value."""
+        if payoff is None:
+            payoff = product.payoff(ps)
+        v = np.empty((ps.n, 1 + len(controls)))
+        v[:, 0] = payoff
+        for i, c in enumerate(controls, start=1):
+            v[:, i] = c.values(ps)
+        finite = np.isfinite(v)
+        if not finite.all():
+            col = int(np.argmin(finite.all(axis=0)))
+            what = "payoff" if col == 0 else f"control variate '{controls[col - 1].name}'"
+            raise FairpathError(f"non-finite values in the {what} of {product.label()} on "
+                                f"{int((~finite[:, col]).sum())} of {len(v)} paths (check the "
+                                "product's terms and the market inputs)")
+        return v
+
+    def values(self, z: np.ndarray) -> list[tuple[np.ndarray, dict]]:
+        """Per product: its per-path values (paths, columns) and diagnostics, from normals
+        ``z``: the first scenario's payoff and controls, each further scenario's payoff, then
+        the extras."""
+        many = len(self.setups) > 1
+        states = [s.stepper.simulate(z.copy() if many else z) for s in self.setups]
+        per_scenario = [self.pathsets(st.log_levels, s)
+                        for st, s in zip(states, self.setups, strict=True)]
+        out = []
+        for j, (prod, ctl) in enumerate(zip(self.products, self.controls, strict=True)):
+            ps = per_scenario[0][j]
+            pay, diag = prod.evaluate(ps)
+            cols = [self.sample_values(prod, ctl, ps, pay)]
+            for k in range(1, len(self.setups)):
+                y = np.asarray(prod.payoff(per_scenario[k][j]), dtype=float)
+                if not np.all(np.isfinite(y)):
+                    raise FairpathError(f"a bumped scenario gave non-finite values for "
+                                        f"{prod.label()}")
+                cols.append(y[:, None])
+            if self.extras is not None:
+                extra = self.extras(j, ps, cols[0][:, 0], self.setups[0].stepper)
+                if extra:
+                    e = np.stack(extra, axis=1)
+                    if not np.all(np.isfinite(e)):
+                        raise FairpathError(f"non-finite values in an estimator of "
+                                            f"{prod.label()}")
+                    cols.append(e)
+            out.append((cols[0] if len(cols) == 1 else np.concatenate(cols, axis=1), diag))
+        return out
+
+    progress: bool = False
+    #: threads for the blocks (None: ``FAIRPATH_THREADS`` or every core)
+    threads: int | None = None
+    def run_blocks(self, blocks: list[Block], chunk_paths: int | None = None
+                   ) -> dict[Block, BlockResult]:
+        """Simulate ``blocks``; return each block's moments for every product.
+
+        Work goes to a pool of threads (the compiled kernels and numpy release the GIL) in
+        units: one Sobol scrambling's blocks in order (its generator runs forward), or a run of
+        pseudo-random blocks. Within a unit, paths are simulated in batches of at most
+        ``chunk_paths`` (memory): small blocks are batched together, a large block is split
+        into pieces. A block's moments are taken once all its paths are in, so neither the
+        batch size nor the number of threads changes a number.
+        """
+        n_a = self.factors
+        per_path = max(1, n_a * max(self.steps, 1) * 8 * 3 * len(self.setups))
+        chunk_paths_given = chunk_paths
+        if chunk_paths is None:
+            chunk_paths = max(64, CHUNK_BYTES // per_path)
+        piece = max(2, int(chunk_paths))
+        if chunk_paths_given is None:
+            piece = min(piece, MAX_BATCH)
+        work = sum(b.size for b in blocks) * n_a * max(self.steps, 1)
+        workers = engine_threads(self.threads) if work >= THREAD_WORK else 1
+        # units: runs of whole scramblings (Sobol) or of blocks (pseudo), about two per thread
+        # so the threads stay busy, and as few as that so each batch is large
+        streams: list[list[Block]] = []  # a Sobol scrambling's blocks stay together, in order
+        for b in blocks:
+            if (self.sampler.replicates is not None and streams
+                    and streams[-1][-1].stream == b.stream):
+                streams[-1].append(b)
+            else:
+                streams.append([b])
+        n_units = min(len(streams), 2 * workers if workers > 1 else 1)
+        per = -(-len(streams) // n_units)
+        units = [[b for run in streams[i:i + per] for b in run]
+                 for i in range(0, len(streams), per)]
+        bar = None
+        if self.progress and len(blocks) > 1:
+            from tqdm.auto import tqdm
+            bar = tqdm(total=sum(b.size for b in blocks), unit="path", leave=False,
+                       desc=self.products[0].label()[:30])
+
+        def run_unit(unit: list[Block]) -> dict[Block, BlockResult]:
+            return self._run_unit(unit, piece)
+
+        out: dict[Block, BlockResult] = {}
+        workers = min(workers, len(units))
+        try:
+            if workers > 1:
+                for done in _pool(workers).map(run_unit, units):
+                    out.update(done)
+                    if bar is not None:
+                        bar.update(sum(b.size for b in done))
+            else:
+                for unit in units:
+                    done = run_unit(unit)
+                    out.update(done)
+                    if bar is not None:
+                        bar.update(sum(b.size for b in done))
+        finally:
+            if bar is not None:
+                bar.close()
+        return out
+
+    def _run_unit(self, unit: list[Block], piece: int) -> dict[Block, BlockResult]:
+        """The blocks of one unit, simulated in batches of at most ``piece`` paths."""
+        n_p = len(self.products)
+        anti = self.sampler.antithetic
+        # per block and product: the per-path values and diagnostics of its pieces, draws
+        # and mirrors apart, to be joined in the order of the whole block
+        parts: dict[Block, list] = {b: [[[], [], [], []] for _ in range(n_p)] for b in unit}
+        left = {b: (b.size // 2 if anti else b.size) for b in unit}
+        out: dict[Block, BlockResult] = {}
+
+        def pieces():
+            for drawn in self.sampler.unit_pieces(unit, self.factors, self.sim_times,
+                                                  piece):
+                yield from drawn
+
+        batch: list[tuple[Block, np.ndarray, int]] = []
+
+        def flush():
+            z = batch[0][1] if len(batch) == 1 else np.concatenate([p[1] for p in batch])
+            for j, (v, diag) in enumerate(self.values(z)):
+                off = 0
+                for b, zb, k in batch:
+                    m = zb.shape[0]
+                    vb = v[off:off + m]
+                    db = {n: a[off:off + m] for n, a in diag.items()}
+                    slot = parts[b][j]
+                    if anti:  # draws first, then their mirrors, as in the whole block
+                        slot[0].append(vb[:k])
+                        slot[1].append(vb[k:])
+                        slot[2].append({n: a[:k] for n, a in db.items()})
+                        slot[3].append({n: a[k:] for n, a in db.items()})
+                    else:
+                        slot[0].append(vb)
+                        slot[2].append(db)
+                    off += m
+            for b, _, k in batch:
+                left[b] -= k
+                if left[b] == 0:
+                    out[b] = self._finish_block(b, parts.pop(b))
+            batch.clear()
+
+        size = 0
+        for b, z, k in pieces():
+            if batch and size + z.shape[0] > piece:
+                flush()
+                size = 0
+            batch.append((b, z, k))
+            size += z.shape[0]
+        if batch:
+            flush()
+        return out
+
+    def _finish_block(self, b: Block, slots: list) -> BlockResult:
+        moments, dsum, paying = [], [], []
+        for draws, mirrors, d_draws, d_mirrors in slots:
+            v = np.concatenate(draws + mirrors)
+            paying.append(int(np.count_nonzero(v[:, 0])))
+            if self.sampler.antithetic:
+                h = b.size // 2
+                v = 0.5 * (v[:h] + v[h:])
+            moments.append(Moments.of(v))
+            ds = d_draws + d_mirrors
+            dsum.append({n: float(np.sum(np.concatenate([p[n] for p in ds])))
+                         for n in (ds[0] if ds else {})})
+        return BlockResult(tuple(moments), tuple(dsum), tuple(paying))
+
+    def payoff_samples(self, blocks: list[Block]) -> np.ndarray:
+        """The first product's discounted payoff on every path of ``blocks``."""
+        out = []
+        for b in blocks:
+            z = self.sampler.normals([b], self.factors, self.sim_times)
+            ps = self.pathsets(self.stepper.simulate(z).log_levels)[0]
+            out.append(np.asarray(self.products[0].payoff(ps), dtype=float))
+        return np.concatenate(out)
+
+    def level_samples(self, block: Block) -> np.ndarray:
+        """Levels on the grid of one block's paths, (paths, assets, grid dates)."""
+        z = self.sampler.normals([block], self.factors, self.sim_times)
+        return np.exp(self.stepper.simulate(z).log_levels)
+
+    def deterministic_values(self) -> list[np.ndarray]:
+        """Payoff and controls of each product when nothing is left to simulate."""
+        x = np.zeros((1, len(self.names), 0))
+        return [self.sample_values(p, c, ps)[0]
+                for p, c, ps in zip(self.products, self.controls, self.pathsets(x), strict=True)]
+
+
+def combine(moments: dict[Block, Moments], blocks: list[Block], controls: list[ControlVariate],
+            sampler: Sampler, force: tuple[str, ...] | None = None) -> Estimate:
+    """Price, standard error and interval from the blocks' moments (see the module notes).
+
+    Candidate control sets are: none, all usable controls together, and each usable control
+    alone; the set with the smallest estimated variance is kept. ``force`` imposes a set by
+    name instead (those that are usable), so that estimates of products whose payoffs are
+    linear in a term stay exactly linear in it.
+    """
+    pooled = merge_all([moments[b] for b in blocks])
+    cov = pooled.cov()
+    mu = np.array([c.mean for c in controls])
+    notes: list[str] = []
+    # a control that does not vary (e.g. a date on the valuation date) cannot help
+    var_x = np.diag(cov)[1:]
+    scale = 1.0 + np.abs(pooled.mean[1:]) ** 2
+    usable = [i for i in range(len(controls)) if var_x[i] > 1e-13 * scale[i]]
+
+    if sampler.replicates is not None:
+        reps: dict[int, list[Moments]] = {}
+        for blk in blocks:
+            reps.setdefault(blk.replicate, []).append(moments[blk])
+        groups = np.array([merge_all(v).mean for _, v in sorted(reps.items())])
+        quant = float(stats.t.ppf(0.975, len(groups) - 1))
+    else:
+        groups = None
+        quant = float(stats.norm.ppf(0.975))
+
+    def estimate(subset: list[int]) -> tuple[float, float]:
+        """(price, variance of the price) with the controls in ``subset``."""
+        idx = np.array(subset, dtype=int) + 1
+        if subset:
+            coef = np.linalg.lstsq(cov[np.ix_(idx, idx)], cov[idx, 0], rcond=None)[0]
+        if groups is not None:  # randomized QMC: spread of the scramblings' estimates
+            est = groups[:, 0] - (groups[:, idx] - mu[subset]) @ coef if subset else groups[:, 0]
+            return float(est.mean()), float(np.var(est, ddof=1)) / len(est)
+        if not subset:
+            return float(pooled.mean[0]), float(cov[0, 0]) / pooled.n
+        price = float(pooled.mean[0] - coef @ (pooled.mean[idx] - mu[subset]))
+        return price, max(float(cov[0, 0] - cov[idx, 0] @ coef), 0.0) / pooled.n
+
+    candidates: list[list[int]] = [[]]
+    if force is not None:
+        candidates = [[i for i in usable if controls[i].name in force]]
+    elif usable:
+        candidates.append(usable)
+        if len(usable) > 1:
+            candidates.extend([i] for i in usable)
+    results = [estimate(c) for c in candidates]
+    best = min(range(len(candidates)), key=lambda k: (results[k][1], len(candidates[k])))
+    price, var = results[best]
+    var_raw = estimate([])[1]
+    chosen = candidates[best]
+    vrf = None
+    if chosen:
+        vrf = var_raw / var if var > 0 else None
+        if var == 0:
+            notes.append("the control variate explains the payoff exactly (zero variance)")
+    elif usable and force is None:
+        notes.append("control variates switched off: none reduced the variance")
+    se = math.sqrt(max(var, 0.0))
+    return Estimate(price, se, (price - quant * se, price + quant * se), pooled.n,
+                    tuple(controls[i].name for i in chosen), vrf, tuple(notes))
+
+
+
+
+def last_date(products: list[Product], market: Market) -> date:
+    """The last date any of the products needs (observations, daily monitoring)."""
+    dates = [market.valuation_date]
+    for p in products:
+        dates.extend(p.observation_dates())
+        daily = p.daily_until()
+        if daily is not None:
+            dates.append(daily)
+    return max(dates)
+
+
+# ---------------------------------------------------------------------------------------------
+# One run
+# ---------------------------------------------------------------------------------------------
+@dataclass
+class Run:
+    """What a run produced: the simulation, the sampler used (after any fallback), the blocks
+    of the final path count with their results, and the notes every result of the run shares."""
+
+    sim: Simulation
+    sampler: Sampler
+    products: list[Product]
+    controls: list[list[ControlVariate]]
+    blocks: list[Block] = field(default_factory=list)
+    cache: dict = field(default_factory=dict)
+    paths: int = 0
+    notes: list[str] = field(default_factory=list)
+    #: per product, the notes on controls switched off for the model
+    control_notes: list[list[str]] = field(default_factory=list)
+
+    def moments(self, j: int = 0) -> dict[Block, Moments]:
+        return {b: self.cache[b].moments[j] for b in self.blocks}
+
+
+def prepare(products: list[Product], market: Market, source: str | None = None
+            ) -> tuple[Market, list[str]]:
+    """Check the products against the market and drop cash dividends outside the products'
+    horizon; the market to simulate and the notes saying what was dropped."""
+    for p in products:
+        p.check(market, source or p.source)
+    names = products[0].underlyings()
+    return market.dividend_horizon(names, last_date(products, market))
+
+
+def usable_controls(controls: list[ControlVariate], capabilities: frozenset[Capability]
+                    ) -> tuple[list[ControlVariate], list[str]]:
+    """The controls whose known means the models guarantee, and the names of the others."""
+    keep = [c for c in controls if c.requires <= capabilities]
+    return keep, [c.name for c in controls if not c.requires <= capabilities]
+
+
+def fit_products(products: list[Product], market: Market, settings: Settings,
+                 source: str | None) -> list[Product]:
+    """Phase one: each product that asks for pilot paths gets them, from a stream of their own
+    (pseudo-random, never any pricing path), and returns the frozen product to price."""
+    out = []
+    for p in products:
+        n = p.pilot_paths()
+        if not n:
+            out.append(p)
+            continue
+        smp = make_sampler("pseudo", seed=settings.seed, antithetic=False,
+                           stream_key=(*settings.stream, PILOT_STREAM))
+        sim = Simulation([p], market, smp, [[]], source, settings.steps_per_day)
+        if sim.steps == 0:
+            out.append(p)
+            continue
+        blocks = smp.plan(n)
+        z = smp.normals(blocks, sim.factors, sim.sim_times)
+        ps = sim.pathsets(sim.stepper.simulate(z).log_levels)[0]
+        out.append(p.fit(ps))
+    return out
+
+
+def run(products: list[Product], scenarios: list[Market], settings: Settings, *,
+        source: str | None = None, extras: Extras | None = None,
+        control_set: tuple[str, ...] | None = None, target_stderr: float | None = None,
+        max_paths: int = DEFAULT_MAX_PATHS) -> Run:
+    """Simulate ``products`` under every market of ``scenarios`` on common random numbers.
+
+    The first scenario sets the grid. Controls are the first scenario's, kept where the models
+    declare what their means need (with ``settings.control``); ``extras`` adds estimators beside
+    the first scenario's payoff. ``target_stderr`` doubles the paths until the first product's
+    standard error is at or below it, up to ``max_paths``. The products are expected to have
+    been checked and the markets trimmed by :func:`prepare`.
+    """
+    smp = settings.make_sampler()
+    paths = settings.paths
+    if target_stderr is not None and not (math.isfinite(target_stderr) and target_stderr > 0):
+        raise InputError(f"must be a positive number, got {target_stderr}", key="target_stderr")
+    if target_stderr is not None and (isinstance(max_paths, bool) or not isinstance(
+            max_paths, int) or max_paths < paths):
+        raise InputError(f"must be an integer at least the path count, got {max_paths!r}",
+                         key="max_paths")
+    market = scenarios[0]
+    products = fit_products(products, market, settings, source)
+    names = products[0].underlyings()
+    models = ModelSet.resolve(market, names, source=source)
+    caps = models.capabilities
+    controls, control_notes = [], []
+    for p in products:
+        keep, dropped = usable_controls(p.controls(market) if settings.control else [], caps)
+        controls.append(keep)
+        control_notes.append([] if not dropped else [
+            "control variates whose known means this model does not guarantee switched off "
+            f"({'; '.join(sorted(dropped))})"])
+    sim = Simulation(products, list(scenarios), smp, controls, source, settings.steps_per_day,
+                     extras)
+    notes = [*models.notes(settings.steps_per_day)]
+    if sim.stepper is not None:
+        notes.extend(sim.stepper.notes)
+    sim.progress = settings.progress
+    sim.threads = None if settings.threads is None else engine_threads(settings.threads)
+    if sim.stepper is not None:
+        models.check_run(sim.stepper.variance, paths)
+    dim = sim.factors * sim.steps
+    if smp.name == "sobol" and dim > SOBOL_MAX_DIM:
+        msg = (f"the Sobol dimension {dim} ({sim.steps} dates x {sim.factors} factors) exceeds "
+               f"the generator's limit of {SOBOL_MAX_DIM}: fell back to the pseudo-random sampler")
+        warnings.warn(msg, SamplingWarning, stacklevel=3)
+        notes.append(msg)
+        smp = make_sampler("pseudo", seed=smp.seed, antithetic=settings.antithetic,
+                           stream_key=settings.stream)
+        sim.sampler = smp
+    out = Run(sim, smp, products, controls, notes=notes, control_notes=control_notes)
+    if sim.steps == 0:
+        return out
+    n = paths
+    while True:
+        blocks = smp.plan(n)
+        todo = [b for b in blocks if b not in out.cache]
+        if todo:
+            out.cache.update(sim.run_blocks(todo, settings.chunk_paths))
+        out.blocks, out.paths = blocks, n
+        if target_stderr is None:
+            break
+        first = combine(out.moments(0), blocks, controls[0], smp, control_set)
+        if first.stderr <= target_stderr:
+            break
+        if n * 2 > max_paths:
+            notes.append(f"target standard error {target_stderr:g} not reached at the cap of "
+                         f"{max_paths:,} paths")
+            break
+        n *= 2
+    return out
+
+
