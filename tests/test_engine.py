@@ -19,7 +19,7 @@ import fairpath as fp
 from fairpath import closed_form as cf
 from fairpath.estimate import Moments, merge_all
 from fairpath.market import Asset, DiscountCurve, Market, VolCurve
-from fairpath.models import GBM, psd_cholesky, simulate_log_levels
+from fairpath.models import ModelSet, psd_cholesky
 from fairpath.sampling import BrownianBridge, PseudoSampler, SobolSampler
 
 VAL = date(2026, 12, 1)
@@ -116,14 +116,12 @@ def test_chunk_size_does_not_matter_on_a_multi_date_multi_asset_grid():
                (Asset("NORDA", 100.0, VolCurve.flat(0.25), 0.02),
                 Asset("KELPA", 50.0, VolCurve((0.5, 1.0), (0.3, 0.35)), 0.0)),
                correlation=fp.Correlation(("NORDA", "KELPA"), ((1.0, 0.6), (0.6, 1.0))))
-    model = GBM.from_market(m, ["NORDA", "KELPA"])
     times = np.array([0.1, 0.35, 0.6, 1.0])
-    params = model.steps(times)
+    steps = ModelSet.resolve(m, ["NORDA", "KELPA"]).stepper(times)
     for smp in (SobolSampler(4), PseudoSampler(4)):
         blocks = smp.plan(8192)
-        whole = simulate_log_levels(params, model.spots, smp.normals(blocks, 2, times))
-        parts = [simulate_log_levels(params, model.spots, smp.normals([b], 2, times))
-                 for b in blocks]
+        whole = steps.simulate(smp.normals(blocks, 2, times)).log_levels
+        parts = [steps.simulate(smp.normals([b], 2, times)).log_levels for b in blocks]
         assert np.array_equal(whole, np.concatenate(parts))
 
 
@@ -134,17 +132,16 @@ def test_simulated_forward_and_correlation():
                (Asset("NORDA", 100.0, VolCurve.flat(0.25), 0.02),
                 Asset("KELPA", 50.0, VolCurve((0.5, 1.0), (0.3, 0.35)), 0.0)),
                correlation=fp.Correlation(("NORDA", "KELPA"), ((1.0, -0.4), (-0.4, 1.0))))
-    model = GBM.from_market(m, ["NORDA", "KELPA"])
     times = np.array([0.25, 1.0, 1.5])
-    params = model.steps(times)
+    steps = ModelSet.resolve(m, ["NORDA", "KELPA"]).stepper(times)
     smp = PseudoSampler(12)
-    x = simulate_log_levels(params, model.spots, smp.normals(smp.plan(200_000), 2, times))
+    x = steps.simulate(smp.normals(smp.plan(200_000), 2, times)).log_levels
     s = np.exp(x[:, :, -1])
     for a, name in enumerate(["NORDA", "KELPA"]):
         fwd = m.forward(name, 1.5)
         se = s[:, a].std() / np.sqrt(len(s))
         assert abs(s[:, a].mean() - fwd) < 4 * se
-    r = x[:, :, -1] - np.log(model.spots)
+    r = x[:, :, -1] - np.log(np.array([100.0, 50.0]))
     var_k = 0.3**2 * 0.5 + (0.35**2 * 1.0 - 0.3**2 * 0.5) / 0.5 * 1.0  # forward var after 0.5
     cov_ref = -0.4 * (0.25 * 0.3 * 0.5 + 0.25 * np.sqrt((0.35**2 - 0.3**2 * 0.5) / 0.5) * 1.0)
     assert np.isclose(np.var(r[:, 1]), var_k, rtol=0.02)

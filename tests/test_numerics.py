@@ -38,7 +38,7 @@ from hypothesis import strategies as st
 
 import fairpath as fp
 from fairpath import closed_form as cf
-from fairpath import estimate
+from fairpath import engine
 
 VAL = date(2026, 12, 1)  # a Tuesday
 NAMES = ("NORDA", "KELPA", "VIREO")
@@ -989,17 +989,17 @@ def test_price_does_not_depend_on_the_chunk_size(case, sampler, antithetic, chun
 def test_price_does_not_depend_on_the_number_of_threads(case, sampler, antithetic):
     # reference: the one-thread run (README, "Threads": "never changes the result"). 16,384
     # paths of a multi-date or two-asset product is work enough for the pool (checked by
-    # watching estimate._pool); a one-date European stays on one thread either way
+    # watching engine._pool); a one-date European stays on one thread either way
     product, m = case
     kw = dict(sampler=sampler, antithetic=antithetic, seed=53, paths=16384)
     one = price(product, m, threads=1, **kw)
-    with mock.patch.object(estimate, "_pool", wraps=estimate._pool) as pool:
+    with mock.patch.object(engine, "_pool", wraps=engine._pool) as pool:
         two = price(product, m, threads=2, **kw)
         two_small = price(product, m, threads=2, chunk_paths=1000, **kw)
     assert finite(one)
     assert same(one, two) and same(one, two_small)
     simulated = 16384 * len(product.underlyings()) * len(two.extras["dates"])
-    if simulated >= estimate.THREAD_WORK:
+    if simulated >= engine.THREAD_WORK:
         assert pool.call_count >= 1 and all(c.args == (2,) for c in pool.call_args_list)
 
 
@@ -1016,7 +1016,7 @@ def test_threads_on_a_daily_note_are_bit_identical(sampler, antithetic):
                            protection_monitoring="continuous", memory=True, notional=100.0)
     kw = dict(sampler=sampler, antithetic=antithetic, seed=59, paths=8192)
     one = price(note, m, threads=1, **kw)
-    with mock.patch.object(estimate, "_pool", wraps=estimate._pool) as pool:
+    with mock.patch.object(engine, "_pool", wraps=engine._pool) as pool:
         two = price(note, m, threads=2, chunk_paths=333, **kw)
     assert pool.call_args_list == [mock.call(2)]
     assert same(one, two)

@@ -47,6 +47,7 @@ from fairpath import closed_form as cf
 from fairpath.dates import parse_tenor, year_fraction
 from fairpath.errors import InputError
 from fairpath.market import attach_surface
+from fairpath.registry import Capability
 from fairpath.surface import VolSurface
 
 VAL = date(2026, 12, 1)  # a Tuesday
@@ -227,7 +228,8 @@ def test_market_file_with_a_surface_and_dividends(tmp_path):
     for t in a.surface.times:
         assert float(a.surface.implied(t, math.exp(R * t))) == pytest.approx(SSVI_ATM, abs=2e-4)
     assert m.local_vol(["NORDA", "KELPA"]) == ("NORDA",)
-    assert not m.lognormal(["NORDA"]) and m.lognormal(["KELPA"])
+    caps = {n: fp.ModelSet.resolve(m, [n]).capabilities for n in ("NORDA", "KELPA")}
+    assert Capability.LOGNORMAL not in caps["NORDA"] and Capability.LOGNORMAL in caps["KELPA"]
     assert m.asset("KELPA").surface is None and m.asset("KELPA").dividends == ()
 
 

@@ -17,7 +17,9 @@ from pathlib import Path
 from fairpath import estimate
 from fairpath.errors import FairpathError, InputError
 from fairpath.market import load_market
+from fairpath.models import model_of
 from fairpath.products.loader import load_product
+from fairpath.registry import known_models
 from fairpath.sampling import DEFAULT_REPLICATES
 
 
@@ -76,6 +78,8 @@ def _add_law_options(p: argparse.ArgumentParser, compare: bool = False) -> None:
                         "local volatility (to see how much of a price is the smile)")
     p.add_argument("--steps-per-day", type=_positive_int, default=1,
                    help="under local volatility, log-Euler steps per weekday (default 1)")
+    p.add_argument("--model", choices=known_models(), default=None,
+                   help="replace every asset's model in the market file (a what-if)")
 
 
 def _law(args, kind: str | None, flag: str):
@@ -100,7 +104,18 @@ def _market(args):
     if getattr(args, "flat_vol", False):
         market = market.with_flat_vol()
     law = _law(args, getattr(args, "law", None), "--law")
-    return market if law is None else market.with_law(law)
+    market = market if law is None else market.with_law(law)
+    kind = getattr(args, "model", None)
+    if kind is not None:
+        market = market.with_model(kind)
+    for n in market.asset_names:  # every asset's model resolved now: bad input before work
+        try:
+            model_of(market, n)
+        except InputError as exc:
+            if kind is None:
+                raise
+            raise InputError(exc.problem, key="--model") from None
+    return market
 
 
 def _law_flag(args, exc: InputError) -> str | None:

@@ -335,8 +335,8 @@ def greeks(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
     if want_lr and not lr_applies(res.sim.stepper):
         if Capability.SCORE not in caps:
             why = ("the model does not give the first step's law in today's spot (a "
-                   "volatility surface, cash dividends or a non-normal shock law), so the "
-                   "likelihood ratio's normal score does not apply")
+                   "volatility surface, cash dividends, or shocks that are not normal), so "
+                   "the likelihood ratio's normal score does not apply")
         else:
             why = ("the first step has no variance or the payoff uses today's spot directly, "
                    "so the normal score does not apply")

@@ -30,7 +30,6 @@ from __future__ import annotations
 
 import dataclasses
 import math
-import warnings
 from dataclasses import dataclass, field
 from datetime import date
 from typing import ClassVar
@@ -38,7 +37,7 @@ from typing import ClassVar
 import numpy as np
 
 from fairpath.dates import schedule_dates
-from fairpath.errors import FairpathWarning, InputError
+from fairpath.errors import InputError
 from fairpath.inputs import MAX_AMOUNT, show
 from fairpath.laws import BRIDGE_UNDER_LAW
 from fairpath.market import Market
@@ -122,11 +121,6 @@ class Autocallable(Product):
             if MAX_LEVEL < v < 1000:  # 1e6 and the like: deliberately never / always
                 raise InputError(f"{v:g} is not a fraction of the initial level (1.00 = 100%); "
                                  f"a percentage? write {v / 100:g} for {v:g}%", key=key)
-        if MAX_LEVEL < self.autocall_level < 1000:
-            warnings.warn(f"autocall_level {self.autocall_level:g} is {self.autocall_level:g} "
-                          "times the initial level, so the note is never called early; if it "
-                          f"is a percentage, write {self.autocall_level / 100:g}",
-                          FairpathWarning, stacklevel=3)
         for key in ("coupon", "notional", "autocall_step"):
             v = getattr(self, key)
             if not math.isfinite(v):
@@ -163,15 +157,23 @@ class Autocallable(Product):
             missing = [a for a in assets if a not in names]
             raise InputError(f"a struck trade needs an initial level for every asset; missing "
                              f"{', '.join(missing)}", key="initial_levels")
+
+    def warnings(self) -> tuple[str, ...]:
+        """Legal but doubtful terms (said once, when the note is loaded)."""
+        out = []
+        if MAX_LEVEL < self.autocall_level < 1000:
+            out.append(f"autocall_level {self.autocall_level:g} is {self.autocall_level:g} "
+                       "times the initial level, so the note is never called early; if it "
+                       f"is a percentage, write {self.autocall_level / 100:g}")
         if self.protection_barrier > 1.0 and self.protection_monitoring != "final":
-            warnings.warn(f"protection_barrier {self.protection_barrier:g} is above the initial "
-                          "level: the note is knocked in from its first close",
-                          FairpathWarning, stacklevel=3)
+            out.append(f"protection_barrier {self.protection_barrier:g} is above the initial "
+                       "level: the note is knocked in from its first close")
+        levels = self.autocall_levels()
         if levels and self.coupon_barrier > max(levels) + 1e-12:
-            warnings.warn(f"coupon_barrier {self.coupon_barrier:g} is above every early-"
-                          f"redemption level (at most {max(levels):g}): coupons would be paid "
-                          "only when the note is called; is that a typo?", FairpathWarning,
-                          stacklevel=3)
+            out.append(f"coupon_barrier {self.coupon_barrier:g} is above every early-"
+                       f"redemption level (at most {max(levels):g}): coupons would be paid "
+                       "only when the note is called; is that a typo?")
+        return tuple(out)
 
     @classmethod
     def from_table(cls, tab) -> dict:

@@ -247,6 +247,10 @@ class Product:
         """Remarks on the trade's state to show beside its price (e.g. a barrier already hit)."""
         return ()
 
+    def warnings(self) -> tuple[str, ...]:
+        """Legal but doubtful terms, warned about once when the product is loaded."""
+        return ()
+
     def model_notes(self, capabilities: frozenset[Capability]) -> tuple[str, ...]:
         """Remarks on how the product is priced under models with these capabilities (e.g. an
         approximate Brownian bridge)."""

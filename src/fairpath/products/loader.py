@@ -2,9 +2,10 @@
 
 from __future__ import annotations
 
+import warnings
 from pathlib import Path
 
-from fairpath.errors import InputError
+from fairpath.errors import FairpathWarning, InputError
 from fairpath.inputs import Table, one_line, read_toml, show
 from fairpath.products.base import Product, product_class
 
@@ -27,7 +28,10 @@ def product_from_dict(data: dict, *, source: str | None = None) -> Product:
     kwargs = cls.from_table(tab)
     tab.finish()
     try:
-        return cls(**kwargs, source=source)
+        product = cls(**kwargs, source=source)
     except InputError as exc:  # the terms' own checks: name the file (and keep to one line)
         key = exc.key if exc.key is None or exc.key.isprintable() else show(exc.key)
         raise InputError(one_line(exc.problem), source=source, key=key) from None
+    for message in product.warnings():  # once per load, never on a later replace
+        warnings.warn(message, FairpathWarning, stacklevel=3)
+    return product
