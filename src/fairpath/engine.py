@@ -312,30 +312,32 @@ class Simulation:
         ``z``: the first scenario's payoff and controls, each further scenario's payoff, then
         the extras."""
         many = len(self.setups) > 1
-        states = [s.stepper.simulate(z.copy() if many else z) for s in self.setups]
-        per_scenario = [self.pathsets(st.log_levels, s)
-                        for st, s in zip(states, self.setups, strict=True)]
-        out = []
-        for j, (prod, ctl) in enumerate(zip(self.products, self.controls, strict=True)):
-            ps = per_scenario[0][j]
-            pay, diag = prod.evaluate(ps)
-            cols = [self.sample_values(prod, ctl, ps, pay)]
-            for k in range(1, len(self.setups)):
-                y = np.asarray(prod.payoff(per_scenario[k][j]), dtype=float)
+        cols: list[list[np.ndarray]] = [[] for _ in self.products]
+        diags: list[dict] = [{} for _ in self.products]
+        for k, setup in enumerate(self.setups):  # one scenario's paths in memory at a time
+            state = setup.stepper.simulate(z.copy() if many else z)
+            for j, (prod, ps) in enumerate(zip(self.products,
+                                               self.pathsets(state.log_levels, setup),
+                                               strict=True)):
+                if k == 0:
+                    pay, diags[j] = prod.evaluate(ps)
+                    cols[j].append(self.sample_values(prod, self.controls[j], ps, pay))
+                    if self.extras is not None:
+                        extra = self.extras(j, ps, cols[j][0][:, 0], setup.stepper)
+                        if extra:
+                            e = np.stack(extra, axis=1)
+                            if not np.all(np.isfinite(e)):
+                                raise FairpathError(f"non-finite values in an estimator of "
+                                                    f"{prod.label()}")
+                            cols[j].append(e)
+                    continue
+                y = np.asarray(prod.payoff(ps), dtype=float)
                 if not np.all(np.isfinite(y)):
                     raise FairpathError(f"a bumped scenario gave non-finite values for "
                                         f"{prod.label()}")
-                cols.append(y[:, None])
-            if self.extras is not None:
-                extra = self.extras(j, ps, cols[0][:, 0], self.setups[0].stepper)
-                if extra:
-                    e = np.stack(extra, axis=1)
-                    if not np.all(np.isfinite(e)):
-                        raise FairpathError(f"non-finite values in an estimator of "
-                                            f"{prod.label()}")
-                    cols.append(e)
-            out.append((cols[0] if len(cols) == 1 else np.concatenate(cols, axis=1), diag))
-        return out
+                cols[j].insert(k, y[:, None])
+        return [(c[0] if len(c) == 1 else np.concatenate(c, axis=1), d)
+                for c, d in zip(cols, diags, strict=True)]
 
     progress: bool = False
     #: threads for the blocks (None: ``FAIRPATH_THREADS`` or every core)
@@ -352,7 +354,7 @@ class Simulation:
         batch size nor the number of threads changes a number.
         """
         n_a = self.factors
-        per_path = max(1, n_a * max(self.steps, 1) * 8 * 3 * len(self.setups))
+        per_path = max(1, n_a * max(self.steps, 1) * 8 * 3)
         chunk_paths_given = chunk_paths
         if chunk_paths is None:
             chunk_paths = max(64, CHUNK_BYTES // per_path)
