@@ -1,6 +1,6 @@
 """Tenors, schedules, day counts and the weekday grid.
 
-Conventions (see the README): a tenor is ``"<n>D|W|M|Y"``; month and year steps keep the day of
+Conventions (docs/products.md): a tenor is ``"<n>D|W|M|Y"``; month and year steps keep the day of
 month and clip it to the month's end (31 Jan + 1M = 28/29 Feb). A date generated from a schedule
 that falls on a Saturday or Sunday rolls to the following Monday; explicit dates are taken as
 written. There are no holiday calendars.

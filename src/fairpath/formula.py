@@ -1,6 +1,6 @@
 """Payoffs written as expressions, compiled safely: ``ast`` whitelist -> sympy -> numpy.
 
-The language (see the README): numbers; the names of the product's assets and of its
+The language (see docs/products.md): numbers; the names of the product's assets and of its
 constants; arithmetic ``+ - * / **`` and unary minus; comparisons ``< <= > >= == !=``;
 ``and``, ``or``, ``not`` between conditions; the functions ``min max mean abs exp log sqrt``
 and ``where(condition, if_true, if_false)``; ``NAME[i]`` (an asset's level at observation

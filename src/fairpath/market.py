@@ -1,6 +1,6 @@
 """Market inputs: valuation date, discount curve, assets, correlation. Frozen and validated.
 
-A market is built from a TOML file by :func:`load_market` (format in the README) or in code::
+A market is built from a TOML file by :func:`load_market` (format in docs/models.md) or in code::
 
     >>> from datetime import date
     >>> m = Market(valuation_date=date(2026, 12, 1), currency="EUR",

@@ -1,6 +1,6 @@
 """Asian options: arithmetic or geometric average of fixings, fixed or floating strike.
 
-Rules (see the README):
+Rules (see docs/products.md):
 
 * ``fixings`` is the whole schedule. Fixings before the valuation date are past: their levels
   are ``past_fixings``, in order. A fixing on the valuation date is past if ``past_fixings``

@@ -1,6 +1,6 @@
 """Autocallable notes on one asset or the worst of several.
 
-Rules (also in the README):
+Rules (also in docs/products.md):
 
 * Performance = level / initial level; the worst performer counts.
 * At observation ``k`` (``k = 0`` the first of the whole schedule, past ones included) the
