@@ -154,6 +154,9 @@ def build_parser() -> argparse.ArgumentParser:
     g.add_argument("--method", choices=("bump", "pathwise", "lr", "auto"), default="auto",
                    help="bump-and-revalue on common random numbers, pathwise, likelihood "
                         "ratio, or the best available per Greek (default %(default)s)")
+    g.add_argument("--buckets", nargs="?", const="tenor", choices=("tenor", "strike"),
+                   default=None, help="vega by the market's own vol pillars (tenor, the "
+                   "default) or by every quote of a surface (strike)")
     _add_law_options(g)
     g.add_argument("--json", action="store_true", help="print one JSON object")
 
@@ -326,7 +329,7 @@ def _greeks(args) -> int:
     product = load_product(args.product)
     res = greeks(product, market, paths=args.paths, sampler=args.sampler, seed=args.seed,
                  method=args.method, replicates=args.replicates, source=args.product,
-                 steps_per_day=args.steps_per_day)
+                 steps_per_day=args.steps_per_day, buckets=args.buckets)
     return _emit(res, args.json)
 
 

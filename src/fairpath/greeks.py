@@ -40,10 +40,10 @@ import json
 import math
 import time
 from dataclasses import dataclass, field
-from datetime import timedelta
 
 import numpy as np
 
+from fairpath import bumps as bump
 from fairpath.dates import year_fraction
 from fairpath.engine import DEFAULT_PATHS, Settings, merge_all, prepare, run
 from fairpath.errors import InputError
@@ -59,9 +59,19 @@ from fairpath.sampling import DEFAULT_REPLICATES
 SPOT_BUMP = 0.01
 VOL_BUMP = 0.01
 RATE_BUMP = 1e-4
+#: Correlation bump (absolute), dividend-yield bump (absolute), cash-dividend bump (relative).
+CORR_BUMP = 0.01
+DIV_BUMP = 1e-4
+CASH_DIV_BUMP = 0.01
+#: ``--buckets``: by tenor (vol pillars or surface rows), or by tenor and strike (each quote).
+BUCKETS = ("tenor", "strike")
 METHODS = ("bump", "pathwise", "lr", "auto")
 #: ``auto`` keeps a bump over the likelihood ratio only when the latter is this much noisier.
 LR_NOISE = 3.0
+
+
+#: z-score below which a Greek is marked not significant (its 95% error bar covers zero)
+SIGNIFICANT_Z = 1.96
 
 
 @dataclass(frozen=True, slots=True)
@@ -70,13 +80,44 @@ class Greek:
     stderr: float
     method: str
 
+    @property
+    def significant(self) -> bool:
+        """Is zero outside the Greek's 95% error bar?"""
+        return abs(self.value) > SIGNIFICANT_Z * self.stderr
+
     def to_dict(self) -> dict:
-        return {"value": self.value, "stderr": self.stderr, "method": self.method}
+        return {"value": self.value, "stderr": self.stderr, "method": self.method,
+                "significant": self.significant}
+
+
+#: per kind of Greek: (factor to the desk's unit given the spot, the unit's name)
+def desk_units(kind: str, spot: float | None) -> tuple[float, str] | None:
+    """The unit a desk reads for a kind of Greek, as ``(factor, name)``: the raw value times
+    ``factor`` is the desk figure."""
+    if kind == "delta" and spot:
+        return 0.01 * spot, "value change for a 1% spot move (cash delta)"
+    if kind == "gamma" and spot:
+        return 1e-4 * spot * spot, "change of the cash delta for a 1% spot move (1% gamma)"
+    if kind == "cross_gamma" and spot:
+        return 1e-4 * spot, "change of the first asset's cash delta for a 1% move of the second"
+    if kind in ("vega", "vega_buckets"):
+        return 0.01, "per vol point"
+    if kind == "rho":
+        return 1e-4, "per basis point"
+    if kind == "theta":
+        return 1.0 / 365.0, "per calendar day"
+    if kind in ("correlation",):
+        return 0.01, "per correlation point (0.01)"
+    if kind == "dividend":
+        return 1e-4, "per basis point of dividend yield"
+    if kind == "cash_dividend":
+        return 0.01, "per 1% of the announced amounts"
+    return None
 
 
 @dataclass(frozen=True, slots=True)
 class GreeksResult:
-    """Price and Greeks; per-asset Greeks are dicts keyed by asset name."""
+    """Price and Greeks; per-asset Greeks are dicts keyed by asset name (pairs ``"A/B"``)."""
 
     price: float
     stderr: float
@@ -93,23 +134,57 @@ class GreeksResult:
     seconds: float
     bumps: dict = field(default_factory=dict)
     notes: tuple[str, ...] = ()
+    #: per pair ``"A/B"`` (and ``"all"``: every pair of the product's assets together)
+    correlation: dict[str, Greek] = field(default_factory=dict)
+    #: per asset: per 1.00 of dividend yield
+    dividend: dict[str, Greek] = field(default_factory=dict)
+    #: per asset with cash dividends: per 100% of the announced amounts
+    cash_dividend: dict[str, Greek] = field(default_factory=dict)
+    #: per asset, per bucket (a vol tenor, a surface tenor, or ``"tenor/strike"``)
+    vega_buckets: dict[str, dict[str, Greek]] = field(default_factory=dict)
+    #: the spots (for the desk's units) and the note's notional, if any
+    spots: dict[str, float] = field(default_factory=dict)
+    notional: float | None = None
+
+    def _per_asset(self) -> list[tuple[str, dict]]:
+        return [("delta", self.delta), ("gamma", self.gamma), ("vega", self.vega),
+                ("cross_gamma", self.cross_gamma), ("correlation", self.correlation),
+                ("dividend", self.dividend), ("cash_dividend", self.cash_dividend)]
+
+    def _desk(self, kind: str, key: str, g: Greek) -> dict:
+        """The desk's figure of one Greek (and as a share of notional for a note)."""
+        spot = self.spots.get(key.split("/")[-1] if kind == "cross_gamma" else key)
+        unit = desk_units(kind, spot)
+        if unit is None:
+            return {}
+        f, name = unit
+        d = {"desk_value": g.value * f, "desk_stderr": g.stderr * f, "desk_unit": name}
+        if self.notional:
+            d["desk_percent_of_notional"] = 100.0 * g.value * f / self.notional
+        return d
 
     def to_dict(self) -> dict:
-        g = {"delta": {k: v.to_dict() for k, v in self.delta.items()},
-             "gamma": {k: v.to_dict() for k, v in self.gamma.items()},
-             "vega": {k: v.to_dict() for k, v in self.vega.items()}}
-        if self.rho is not None:
-            g["rho"] = self.rho.to_dict()
-        if self.theta is not None:
-            g["theta"] = self.theta.to_dict()
-        if self.cross_gamma:
-            g["cross_gamma"] = {k: v.to_dict() for k, v in self.cross_gamma.items()}
-        return {"price": self.price, "stderr": self.stderr, "greeks": g,
-                "currency": self.currency, "paths": self.paths, "sampler": self.sampler,
-                "seed": self.seed, "seconds": round(self.seconds, 6), "bumps": self.bumps,
-                "units": "delta per 1 unit of spot, gamma per unit^2, vega per 1.00 of vol, "
-                         "rho per 1.00 of rate, theta per year",
-                "notes": list(self.notes)}
+        g: dict = {}
+        for kind, table in self._per_asset():
+            if table or kind in ("delta", "gamma", "vega"):
+                g[kind] = {k: {**v.to_dict(), **self._desk(kind, k, v)}
+                           for k, v in table.items()}
+        for kind, v in (("rho", self.rho), ("theta", self.theta)):
+            if v is not None:
+                g[kind] = {**v.to_dict(), **self._desk(kind, "", v)}
+        out = {"price": self.price, "stderr": self.stderr, "greeks": g,
+               "currency": self.currency, "paths": self.paths, "sampler": self.sampler,
+               "seed": self.seed, "seconds": round(self.seconds, 6), "bumps": self.bumps,
+               "units": UNITS, "notes": list(self.notes)}
+        if self.vega_buckets:
+            out["greeks"]["vega_buckets"] = {
+                a: {b: {**v.to_dict(), **self._desk("vega_buckets", a, v)}
+                    for b, v in buckets.items()} for a, buckets in self.vega_buckets.items()}
+            out["vega_buckets"] = out["greeks"]["vega_buckets"]
+        for kind in ("correlation", "dividend"):
+            if kind in g:
+                out[kind] = g[kind]
+        return out
 
     def to_json(self) -> str:
         return json.dumps(self.to_dict())
@@ -119,21 +194,40 @@ class GreeksResult:
         out += [("gamma", k, v) for k, v in self.gamma.items()]
         out += [("cross-gamma", k, v) for k, v in self.cross_gamma.items()]
         out += [("vega", k, v) for k, v in self.vega.items()]
+        for a, buckets in self.vega_buckets.items():
+            out += [("vega bucket", f"{a} {b}", v) for b, v in buckets.items()]
         if self.rho is not None:
             out.append(("rho", "", self.rho))
         if self.theta is not None:
             out.append(("theta", "", self.theta))
+        out += [("correlation", k, v) for k, v in self.correlation.items()]
+        out += [("dividend", k, v) for k, v in self.dividend.items()]
+        out += [("cash dividend", k, v) for k, v in self.cash_dividend.items()]
         return out
+
+    def _desk_row(self, name: str, asset: str, g: Greek) -> str:
+        kind = {"cross-gamma": "cross_gamma", "vega bucket": "vega_buckets",
+                "cash dividend": "cash_dividend"}.get(name, name)
+        key = asset.split(" ")[0] if kind == "vega_buckets" else asset
+        d = self._desk(kind, key, g)
+        if not d:
+            return ""
+        txt = f"{d['desk_value']:.6g}"
+        if "desk_percent_of_notional" in d:
+            txt += f" ({d['desk_percent_of_notional']:.4g}% of notional)"
+        return txt
 
     def __str__(self) -> str:
         lines = [f"price {self.price:.6f} {self.currency} (stderr {self.stderr:.6f}); "
                  f"{self.paths:,} {self.sampler} paths, seed {self.seed}",
-                 f"{'greek':<12} {'asset':<14} {'value':>14} {'stderr':>12}  method"]
+                 f"{'greek':<14} {'asset':<16} {'value':>14} {'stderr':>12}  "
+                 f"{'desk units':<34} method"]
         for name, asset, g in self.rows():
-            lines.append(f"{name:<12} {asset:<14} {g.value:>14.6f} {g.stderr:>12.6f}  "
-                         f"{g.method}")
-        lines.append("units: delta per 1 unit of spot, gamma per unit^2, vega per 1.00 of vol, "
-                     "rho per 1.00 of rate, theta per year")
+            flag = "" if g.significant else "  (not significant)"
+            lines.append(f"{name:<14} {asset:<16} {g.value:>14.6f} {g.stderr:>12.6f}  "
+                         f"{self._desk_row(name, asset, g):<34} {g.method}{flag}")
+        lines.append(f"units: {UNITS}")
+        lines.append(f"desk units: {DESK_UNITS}")
         lines.extend(f"note: {n}" for n in self.notes)
         return "\n".join(lines)
 
@@ -141,39 +235,45 @@ class GreeksResult:
         import html
         body = "".join(f"<tr><td>{html.escape(n)}</td><td>{html.escape(a)}</td>"
                        f"<td>{g.value:.6f}</td><td>{g.stderr:.6f}</td>"
-                       f"<td>{html.escape(g.method)}</td></tr>" for n, a, g in self.rows())
+                       f"<td>{html.escape(self._desk_row(n, a, g))}</td>"
+                       f"<td>{html.escape(g.method)}"
+                       f"{'' if g.significant else ' (not significant)'}</td></tr>"
+                       for n, a, g in self.rows())
         return (f"<p>price {self.price:.6f} {html.escape(self.currency)} (stderr "
                 f"{self.stderr:.6f})</p><table><tr><th>greek</th><th>asset</th><th>value</th>"
-                f"<th>stderr</th><th>method</th></tr>{body}</table>"
+                f"<th>stderr</th><th>desk units</th><th>method</th></tr>{body}</table>"
+                f"<p><small>{html.escape(DESK_UNITS)}</small></p>"
                 f"<p><small>{html.escape(CAUTION)}</small></p>")
+
+
+UNITS = ("delta per 1 unit of spot, gamma per unit^2, vega per 1.00 of vol, rho per 1.00 of "
+         "rate, theta per year, correlation per 1.00 of correlation, dividend per 1.00 of "
+         "dividend yield, cash dividend per 100% of the announced amounts")
+DESK_UNITS = ("cash delta = value change for a 1% spot move; 1% gamma = change of the cash "
+              "delta for a 1% move; vega per vol point; rho per basis point; theta per day; "
+              "correlation per 0.01; dividend per basis point of yield; cash dividend per 1% "
+              "of the amounts; for a note also as a percentage of notional")
 
 
 # ---------------------------------------------------------------------------------------------
 # Scenario markets
 # ---------------------------------------------------------------------------------------------
-def _bump_spot(market: Market, name: str, factor: float) -> Market:
+def vol_buckets(market: Market, name: str, by: str) -> list[tuple[str, int | None, int | None]]:
+    """``(label, tenor index, strike index)`` of each vega bucket of an asset: its vol pillars
+    or surface tenors (``by="tenor"``), or every surface quote (``by="strike"``); a flat vol is
+    one bucket ``("flat", None, None)``."""
     a = market.asset(name)
-    return market.with_asset(dataclasses.replace(a, spot=a.spot * factor))
-
-
-def vol_bump(market: Market, name: str) -> float:
-    """The vega bump of an asset: one vol point, or half its lowest pillar vol when that is
-    below two points (so a low vol is bumped relative to its size, never through zero); a
-    surface is moved in parallel, every quote by the bump."""
-    a = market.asset(name)
-    low = min(a.vol.vols) if a.surface is None else min(min(r) for r in a.surface.vols)
-    return min(VOL_BUMP, 0.5 * low)
-
-
-def _bump_vol(market: Market, name: str, dv: float) -> Market:
-    a = market.asset(name)
-    vol = a.vol.shifted(dv)
-    lowest = min(vol.vols) if a.surface is None else min(min(r) for r in a.surface.vols) + dv
-    if not lowest > 0:
-        raise InputError(f"a vega bump would make {name}'s vol non-positive: its vol is "
-                         f"{lowest - dv:g}", source=market.source, key=f"assets.{name}.vol")
-    surface = a.surface.shifted(dv) if a.surface is not None else None
-    return market.with_asset(dataclasses.replace(a, vol=vol, surface=surface))
+    if a.surface is not None:
+        s = a.surface
+        tenors = s.tenor_names or tuple(f"{t:.4g}y" for t in s.times)
+        if by == "tenor":
+            return [(t, i, None) for i, t in enumerate(tenors)]
+        return [(f"{t}/{k:g}", i, j) for i, t in enumerate(tenors)
+                for j, k in enumerate(s.strikes)]
+    if a.vol.is_flat:
+        return [("flat", None, None)]
+    names = a.vol.names or tuple(f"{t:.4g}y" for t in a.vol.times)
+    return [(t, i, None) for i, t in enumerate(names)]
 
 
 def likelihood_ratio(y: np.ndarray, x1: np.ndarray, spots: np.ndarray, mean: np.ndarray,
@@ -209,7 +309,8 @@ def greeks(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
            antithetic: bool = False, replicates: int = DEFAULT_REPLICATES,
            cross_gamma: bool = True, source: str | None = None,
            stream: tuple[int, ...] = (), steps_per_day: int = 1,
-           threads: int | None = None) -> GreeksResult:
+           threads: int | None = None, correlation: bool = True, dividends: bool = True,
+           buckets: str | None = None) -> GreeksResult:
     """Delta, gamma (and cross-gammas), vega per asset, rho and theta, each with its error.
 
     Parameters
@@ -255,31 +356,30 @@ def greeks(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
                      "reliable; delta and gamma also have likelihood-ratio estimates where "
                      "the levels are lognormal, which 'auto' prefers unless they are far "
                      "noisier")
-    # scenario list: (label, market)
+    # scenario list: (label, market); every bump rebuilds what depends on it (fairpath.bumps)
     scen: list[tuple[str, Market]] = [("base", market)]
     bumps = {"spot": f"{SPOT_BUMP:.0%} of spot, central", "vol": f"{VOL_BUMP:g} absolute, central",
              "rate": f"{RATE_BUMP:g} parallel, central", "theta": "valuation date +-1 day, central"}
     for n in names:
-        scen.append((f"S+ {n}", _bump_spot(market, n, 1 + SPOT_BUMP)))
-        scen.append((f"S- {n}", _bump_spot(market, n, 1 - SPOT_BUMP)))
+        scen.append((f"S+ {n}", bump.spot(market, n, 1 + SPOT_BUMP)))
+        scen.append((f"S- {n}", bump.spot(market, n, 1 - SPOT_BUMP)))
     pairs = [(a, b) for i, a in enumerate(names) for b in names[i + 1:]] if cross_gamma else []
     for a, b in pairs:
         for sa in (1, -1):
             for sb in (1, -1):
-                m2 = _bump_spot(_bump_spot(market, a, 1 + sa * SPOT_BUMP), b, 1 + sb * SPOT_BUMP)
+                m2 = bump.spot(bump.spot(market, a, 1 + sa * SPOT_BUMP), b, 1 + sb * SPOT_BUMP)
                 scen.append((f"S{sa:+d}{sb:+d} {a}/{b}", m2))
-    dvs = {n: vol_bump(market, n) for n in names}
+    dvs = {n: bump.vol_bump_size(market, n, VOL_BUMP) for n in names}
     for n in names:
-        scen.append((f"v+ {n}", _bump_vol(market, n, dvs[n])))
-        scen.append((f"v- {n}", _bump_vol(market, n, -dvs[n])))
+        scen.append((f"v+ {n}", bump.vol(market, n, dvs[n])))
+        scen.append((f"v- {n}", bump.vol(market, n, -dvs[n])))
     if any(dv < VOL_BUMP for dv in dvs.values()):
         bumps["vol"] = (f"{VOL_BUMP:g} absolute, central; half the lowest vol where that is "
                         f"smaller ({', '.join(f'{n}: {dv:g}' for n, dv in dvs.items())})")
-    scen.append(("r+", dataclasses.replace(market, discount=market.discount.shifted(RATE_BUMP))))
-    scen.append(("r-", dataclasses.replace(market, discount=market.discount.shifted(-RATE_BUMP))))
-    later = dataclasses.replace(market, valuation_date=market.valuation_date + timedelta(days=1))
-    earlier = dataclasses.replace(market,
-                                  valuation_date=market.valuation_date - timedelta(days=1))
+    scen.append(("r+", bump.rates(market, RATE_BUMP)))
+    scen.append(("r-", bump.rates(market, -RATE_BUMP)))
+    later = bump.valuation_date(market, 1)
+    earlier = bump.valuation_date(market, -1)
     theta_ok = True
     try:
         product.check(later, source)
@@ -289,6 +389,62 @@ def greeks(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
     if theta_ok:
         scen.append(("t+1d", later))
         scen.append(("t-1d", earlier))
+    # correlation: each pair of the product's assets, and every pair together
+    corr_pairs = [(a, b) for i, a in enumerate(names) for b in names[i + 1:]] \
+        if correlation else []
+    corr_done: list[str] = []
+    skipped: list[str] = []
+    groups_c = [(f"{a}/{b}", [(a, b)]) for a, b in corr_pairs]
+    if len(corr_pairs) > 1:
+        groups_c.append(("all", corr_pairs))
+    for label, group in groups_c:
+        try:
+            up = bump.correlation(market, group, CORR_BUMP)
+            dn = bump.correlation(market, group, -CORR_BUMP)
+        except InputError as exc:
+            skipped.append(f"{label} ({exc.problem})")
+            continue
+        scen.append((f"c+ {label}", up))
+        scen.append((f"c- {label}", dn))
+        corr_done.append(label)
+    if corr_done:
+        bumps["correlation"] = f"{CORR_BUMP:g} absolute, central"
+    if skipped:
+        notes.append("correlation sensitivity skipped where a bump breaks the matrix: "
+                     + "; ".join(skipped))
+    # dividends: the yield of each asset; the announced cash amounts where there are some
+    cash = [n for n in names if market.dividend_times(n)] if dividends else []
+    for n in names if dividends else []:
+        scen.append((f"q+ {n}", bump.dividend_yield(market, n, DIV_BUMP)))
+        scen.append((f"q- {n}", bump.dividend_yield(market, n, -DIV_BUMP)))
+    for n in cash:
+        scen.append((f"D+ {n}", bump.cash_dividends(market, n, 1 + CASH_DIV_BUMP)))
+        scen.append((f"D- {n}", bump.cash_dividends(market, n, 1 - CASH_DIV_BUMP)))
+    if dividends:
+        bumps["dividend"] = f"{DIV_BUMP:g} of yield, central" + (
+            f"; cash amounts +-{CASH_DIV_BUMP:.0%}, central" if cash else "")
+    # vega by bucket: one pillar (a vol tenor, a surface row) or one surface quote at a time
+    bucket_labels: dict[str, list[tuple[str, int | None, int | None]]] = {}
+    if buckets is not None:
+        if buckets not in BUCKETS:
+            raise InputError(f"unknown buckets {buckets!r}; known: {', '.join(BUCKETS)}",
+                             key="--buckets")
+        for n in names:
+            bucket_labels[n] = vol_buckets(market, n, buckets)
+        if not any(len(v) > 1 or v[0][1] is not None for v in bucket_labels.values()):
+            raise InputError("vega by bucket needs vol pillars (vol_tenors or a vol_surface), "
+                             f"and {', '.join(names)} "
+                             f"{'has' if len(names) == 1 else 'have'} a flat vol",
+                             source=market.source, key="--buckets")
+        for n, labels in bucket_labels.items():
+            for label, ti, ki in labels:
+                if ti is None and ki is None:
+                    continue  # a flat vol: its bucket is the parallel vega
+                scen.append((f"b+ {n} {label}", bump.vol(market, n, dvs[n], tenor=ti,
+                                                         strike=ki)))
+                scen.append((f"b- {n} {label}", bump.vol(market, n, -dvs[n], tenor=ti,
+                                                         strike=ki)))
+        bumps["vega_buckets"] = f"{VOL_BUMP:g} absolute per bucket, central; by {buckets}"
     index = {lab: i for i, (lab, _) in enumerate(scen)}
 
     models = ModelSet.resolve(market, names, source=source)
@@ -420,6 +576,34 @@ def greeks(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
         dt = year_fraction(market.valuation_date, later.valuation_date, market.day_count)
         theta = combo({index["t+1d"]: 0.5 / dt, index["t-1d"]: -0.5 / dt},
                       "bump (valuation date +-1 day, common numbers)")
+    central = "bump (central, common numbers)"
+    corr = {lab: combo({index[f"c+ {lab}"]: 0.5 / CORR_BUMP, index[f"c- {lab}"]: -0.5 / CORR_BUMP},
+                       central + ("; every pair together" if lab == "all" else ""))
+            for lab in corr_done}
+    divs = {n: combo({index[f"q+ {n}"]: 0.5 / DIV_BUMP, index[f"q- {n}"]: -0.5 / DIV_BUMP},
+                     central) for n in (names if dividends else ())}
+    cash_divs = {n: combo({index[f"D+ {n}"]: 0.5 / CASH_DIV_BUMP,
+                           index[f"D- {n}"]: -0.5 / CASH_DIV_BUMP}, central) for n in cash}
+    vega_b: dict[str, dict[str, Greek]] = {}
+    for n, labels in bucket_labels.items():
+        vega_b[n] = {}
+        for label, ti, ki in labels:
+            if ti is None and ki is None:
+                vega_b[n][label] = dataclasses.replace(vega[n], method=vega[n].method
+                                                       + "; a flat vol: one bucket")
+                continue
+            vega_b[n][label] = combo({index[f"b+ {n} {label}"]: 0.5 / dvs[n],
+                                      index[f"b- {n} {label}"]: -0.5 / dvs[n]}, central)
+        w: dict[int, float] = {}
+        for label, ti, ki in labels:
+            if ti is None and ki is None:
+                continue
+            w[index[f"b+ {n} {label}"]] = w.get(index[f"b+ {n} {label}"], 0) + 0.5 / dvs[n]
+            w[index[f"b- {n} {label}"]] = w.get(index[f"b- {n} {label}"], 0) - 0.5 / dvs[n]
+        if w:
+            total = combo(w, "")
+            notes.append(f"vega buckets of {n} add up to {total.value:.6g} (stderr "
+                         f"{total.stderr:.2g}) against a parallel vega of {vega[n].value:.6g}")
     if product.payoff_jumps:
         def flag(g: Greek | None) -> Greek | None:
             """A bump of a jumping payoff whose error bar is exactly zero saw no path cross a
@@ -428,12 +612,16 @@ def greeks(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
                 return g
             return dataclasses.replace(g, method=g.method + "; error bar unreliable: no path "
                                        "crossed a trigger between the bumped runs")
-        delta, gamma, vega, cross = ({k: flag(v) for k, v in d.items()}
-                                     for d in (delta, gamma, vega, cross))
+        delta, gamma, vega, cross, corr, divs, cash_divs = (
+            {k: flag(v) for k, v in d.items()}
+            for d in (delta, gamma, vega, cross, corr, divs, cash_divs))
+        vega_b = {a: {k: flag(v) for k, v in d.items()} for a, d in vega_b.items()}
         rho, theta = flag(rho), flag(theta)
     return GreeksResult(base.value, base.stderr, market.currency, delta, gamma, vega, cross,
                         rho, theta, paths, smp.name, smp.seed, time.perf_counter() - t0, bumps,
-                        tuple(notes))
+                        tuple(notes), corr, divs, cash_divs, vega_b,
+                        {n: market.asset(n).spot for n in names},
+                        getattr(product, "notional", None))
 
 
 def greek_profile(product: Product, market: Market, asset: str | None = None,
@@ -464,7 +652,7 @@ def greek_profile(product: Product, market: Market, asset: str | None = None,
     for s in spots:
         if not s > 0:
             raise InputError(f"spots must be positive, got {s}", key="spots")
-        m = _bump_spot(market, asset, float(s) / base)
+        m = bump.spot(market, asset, float(s) / base)
         out.append((float(s), greeks(product, m, **kwargs)))
     return GreekProfile(out, asset=asset)
 

@@ -101,6 +101,8 @@ class VolCurve:
 
     times: tuple[float, ...]
     vols: tuple[float, ...]
+    #: the tenors as the market file writes them ("6M"), for vega buckets and messages
+    names: tuple[str, ...] = field(default=(), compare=False)
 
     @classmethod
     def flat(cls, vol: float) -> VolCurve:
@@ -141,7 +143,7 @@ class VolCurve:
 
     def shifted(self, dv: float) -> VolCurve:
         """Every pillar vol moved by ``dv`` (used for vega and vol bands)."""
-        return VolCurve(self.times, tuple(v + dv for v in self.vols))
+        return VolCurve(self.times, tuple(v + dv for v in self.vols), self.names)
 
 
 def integrate_vol_product(a: VolCurve, b: VolCurve, t0, t1):
@@ -462,7 +464,7 @@ def load_market(path: str | Path) -> Market:
                 if w[i] < w[i - 1] - 1e-14:
                     raise a.error(f"vols[{i}]", "total variance vol^2 * t decreases between "
                                   f"tenors {i - 1} and {i} (negative forward variance)")
-            vol = VolCurve(tuple(times), tuple(vols))
+            vol = VolCurve(tuple(times), tuple(vols), tuple(str(x) for x in a.list("vol_tenors")))
         else:
             raise a.error("vol", "missing required key (or 'vol_tenors' + 'vols')")
         q = _rate(a, "dividend_yield", a.raw("dividend_yield", 0.0))
