@@ -425,6 +425,7 @@ def greeks(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
             f"; cash amounts +-{CASH_DIV_BUMP:.0%}, central" if cash else "")
     # vega by bucket: one pillar (a vol tenor, a surface row) or one surface quote at a time
     bucket_labels: dict[str, list[tuple[str, int | None, int | None]]] = {}
+    bucket_dv: dict[tuple[str, str], float] = {}
     if buckets is not None:
         if buckets not in BUCKETS:
             raise InputError(f"unknown buckets {buckets!r}; known: {', '.join(BUCKETS)}",
@@ -436,14 +437,34 @@ def greeks(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
                              f"and {', '.join(names)} "
                              f"{'has' if len(names) == 1 else 'have'} a flat vol",
                              source=market.source, key="--buckets")
+        refused: list[str] = []
         for n, labels in bucket_labels.items():
             for label, ti, ki in labels:
                 if ti is None and ki is None:
                     continue  # a flat vol: its bucket is the parallel vega
-                scen.append((f"b+ {n} {label}", bump.vol(market, n, dvs[n], tenor=ti,
-                                                         strike=ki)))
-                scen.append((f"b- {n} {label}", bump.vol(market, n, -dvs[n], tenor=ti,
-                                                         strike=ki)))
+                # one quote moved alone can make a steep smile arbitrageable: a tenth of the
+                # bump then, else the bucket is skipped and said
+                for dv in (dvs[n], 0.1 * dvs[n]):
+                    try:
+                        up = bump.vol(market, n, dv, tenor=ti, strike=ki)
+                        dn = bump.vol(market, n, -dv, tenor=ti, strike=ki)
+                    except InputError as exc:
+                        why = exc.problem
+                        continue
+                    scen.append((f"b+ {n} {label}", up))
+                    scen.append((f"b- {n} {label}", dn))
+                    bucket_dv[(n, label)] = dv
+                    break
+                else:
+                    refused.append(f"{n} {label} ({why})")
+        smaller = [f"{n} {lab}" for (n, lab), dv in bucket_dv.items() if dv < dvs[n]]
+        if smaller:
+            notes.append(f"vega buckets bumped by a tenth of {VOL_BUMP:g} where a full bump "
+                         f"of one quote breaks the surface's arbitrage checks: "
+                         f"{', '.join(smaller)}")
+        if refused:
+            notes.append("vega buckets skipped (even a small bump breaks the surface's "
+                         f"arbitrage checks): {'; '.join(refused)}")
         bumps["vega_buckets"] = f"{VOL_BUMP:g} absolute per bucket, central; by {buckets}"
     index = {lab: i for i, (lab, _) in enumerate(scen)}
 
@@ -592,14 +613,18 @@ def greeks(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
                 vega_b[n][label] = dataclasses.replace(vega[n], method=vega[n].method
                                                        + "; a flat vol: one bucket")
                 continue
-            vega_b[n][label] = combo({index[f"b+ {n} {label}"]: 0.5 / dvs[n],
-                                      index[f"b- {n} {label}"]: -0.5 / dvs[n]}, central)
-        w: dict[int, float] = {}
-        for label, ti, ki in labels:
-            if ti is None and ki is None:
+            if (n, label) not in bucket_dv:
                 continue
-            w[index[f"b+ {n} {label}"]] = w.get(index[f"b+ {n} {label}"], 0) + 0.5 / dvs[n]
-            w[index[f"b- {n} {label}"]] = w.get(index[f"b- {n} {label}"], 0) - 0.5 / dvs[n]
+            dv = bucket_dv[(n, label)]
+            vega_b[n][label] = combo({index[f"b+ {n} {label}"]: 0.5 / dv,
+                                      index[f"b- {n} {label}"]: -0.5 / dv}, central)
+        w: dict[int, float] = {}
+        for label, _, _ in labels:
+            if (n, label) not in bucket_dv:
+                continue
+            dv = bucket_dv[(n, label)]
+            w[index[f"b+ {n} {label}"]] = 0.5 / dv
+            w[index[f"b- {n} {label}"]] = -0.5 / dv
         if w:
             total = combo(w, "")
             notes.append(f"vega buckets of {n} add up to {total.value:.6g} (stderr "
