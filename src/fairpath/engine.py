@@ -35,6 +35,7 @@ frozen product (``Product.fit``), and that product is what every thread and scen
 
 from __future__ import annotations
 
+import dataclasses
 import math
 import os
 import threading
@@ -201,6 +202,9 @@ class ScenarioSetup:
     models: ModelSet
     times: np.ndarray
     stepper: object | None
+    #: differs from the first scenario by its spots only: its paths may be the first
+    #: scenario's rescaled (``Stepper.respot``), with no new simulation
+    spots_only: bool = False
 
     @property
     def spots(self) -> np.ndarray:
@@ -250,7 +254,9 @@ class Simulation:
         self.dates = [tuple(p.observation_dates()) for p in self.products]
         self.obs_index = [np.array([pos.get(d, -1) for d in ds], dtype=int) for ds in self.dates]
         self.steps_per_day = steps_per_day
-        self.setups = [self._setup(m, i == 0, source) for i, m in enumerate(scenarios)]
+        self.setups: list[ScenarioSetup] = []
+        for i, m in enumerate(scenarios):
+            self.setups.append(self._setup(m, i == 0, source))
         base = self.setups[0]
         self.grid_times = base.times
         self.stepper = base.stepper
@@ -267,8 +273,21 @@ class Simulation:
         else:
             times = np.array([max(m.time(d), 0.0) for d in dates]) if dates else np.zeros(0)
             models = ModelSet.resolve(m, self.names, source=source)
+            if self._spots_only(m):
+                base = self.setups[0]
+                return ScenarioSetup(m, models, base.times, base.stepper, True)
         stepper = models.stepper(times, self.steps_per_day) if len(dates) else None
         return ScenarioSetup(m, models, times, stepper)
+
+    def _spots_only(self, m: Market) -> bool:
+        """Does ``m`` differ from the first scenario's market in its spots alone?"""
+        base = self.setups[0].market
+        if len(m.assets) != len(base.assets):
+            return False
+        same = dataclasses.replace(m, assets=tuple(
+            dataclasses.replace(a, spot=b.spot) for a, b in zip(m.assets, base.assets,
+                                                                strict=True)))
+        return same == base
 
     @property
     def steps(self) -> int:
@@ -314,8 +333,15 @@ class Simulation:
         many = len(self.setups) > 1
         cols: list[list[np.ndarray]] = [[] for _ in self.products]
         diags: list[dict] = [{} for _ in self.products]
+        base_state = None
         for k, setup in enumerate(self.setups):  # one scenario's paths in memory at a time
-            state = setup.stepper.simulate(z.copy() if many else z)
+            state = None
+            if setup.spots_only and base_state is not None:
+                state = setup.stepper.respot(base_state, setup.market)
+            if state is None:
+                state = setup.stepper.simulate(z.copy() if many else z)
+            if k == 0:
+                base_state = state
             for j, (prod, ps) in enumerate(zip(self.products,
                                                self.pathsets(state.log_levels, setup),
                                                strict=True)):

@@ -127,6 +127,12 @@ class Stepper:
         """Paths from the normals ``z`` (paths, factors, sim steps), which it may overwrite."""
         raise NotImplementedError
 
+    def respot(self, state: PathState, market: Market) -> PathState | None:
+        """The paths of ``state`` as they would be simulated, from the same normals, on
+        ``market``: the stepper's own market with only spots moved. None (the default) when
+        the model cannot tell without simulating again."""
+        return None
+
     def first_step(self) -> tuple[np.ndarray, np.ndarray] | None:
         """Mean and covariance of the first step's log-return given the log spots, where the
         model declares :attr:`Capability.SCORE`; None otherwise."""
@@ -281,6 +287,28 @@ def add_escrow(x: np.ndarray, escrow: np.ndarray | None) -> np.ndarray:
             if np.any(escrow[a]):
                 x[:, a, :] = np.log(np.exp(x[:, a, :]) + escrow[a][None, :])
     return x
+
+
+class ScalesWithSpot:
+    """A stepper whose escrowed part moves in proportion to its starting value: exact GBM
+    steps, a law's shocks, and local volatility in log-moneyness against the forward (the
+    forward moves with the spot, so the path in moneyness does not change). A spot bump is
+    then the base paths rescaled, with no new simulation. Needs ``names``, ``log_start`` and
+    ``escrow`` (and ``times``) set by the stepper."""
+
+    def respot(self, state: PathState, market: Market) -> PathState:
+        new = escrowed_log_spots(market, self.names)
+        x = state.log_levels.copy()
+        for a in range(x.shape[1]):
+            shift = new[a] - self.log_start[a]
+            if shift == 0:
+                continue
+            if self.escrow is not None and np.any(self.escrow[a]):
+                d = self.escrow[a][None, :]
+                x[:, a, :] = np.log((np.exp(x[:, a, :]) - d) * np.exp(shift) + d)
+            else:
+                x[:, a, :] += shift
+        return PathState(x, dict(state.extra))
 
 
 def escrowed_log_spots(market: Market, names: tuple[str, ...]) -> np.ndarray:

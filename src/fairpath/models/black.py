@@ -28,6 +28,7 @@ from fairpath.market import integrate_vol_product
 from fairpath.models.base import (
     Model,
     PathState,
+    ScalesWithSpot,
     Stepper,
     add_escrow,
     escrow_table,
@@ -100,7 +101,7 @@ def log_forward_steps(models, times: np.ndarray) -> np.ndarray:
     return np.diff(logf, axis=1)
 
 
-class ExactSteps(Stepper):
+class ExactSteps(ScalesWithSpot, Stepper):
     """Exact joint GBM steps on the grid (any step length), in a compiled loop."""
 
     def __init__(self, models, correlation: np.ndarray, times: np.ndarray):
@@ -112,6 +113,7 @@ class ExactSteps(Stepper):
         self.variance = np.stack([cov[:, i, i] for i in range(len(models))])
         self.factor = np.stack([psd_cholesky(cov[k]) for k in range(len(self.times))])
         self.drift = log_forward_steps(models, self.times) - 0.5 * self.variance
+        self.names = names
         self.log_start = escrowed_log_spots(market, names)
         self.escrow = escrow_table(market, names, self.times)
         self.notes = ()

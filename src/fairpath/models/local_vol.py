@@ -22,6 +22,7 @@ from fairpath.market import integrate_vol_product
 from fairpath.models.base import (
     Model,
     PathState,
+    ScalesWithSpot,
     Stepper,
     add_escrow,
     escrow_table,
@@ -72,7 +73,7 @@ class LocalVol(Model):
         return LocalSteps(models, correlation, times, steps_per_day)
 
 
-class LocalSteps(Stepper):
+class LocalSteps(ScalesWithSpot, Stepper):
     """Log-Euler stepping under local volatility on the grid cut into ``steps_per_day`` pieces.
 
     ``variance`` is each grid step's Black variance at the at-the-money term structure (what a
@@ -119,6 +120,7 @@ class LocalSteps(Stepper):
         self.grid_cols = np.arange(sub - 1, n_f, sub)
         self.sim_times = fine
         self.factors = n_a
+        self.names = names
         self.log_start = escrowed_log_spots(market, names)
         self.escrow = escrow_table(market, names, self.times)
         self.notes = ((f"local variance floored at a 1% vol at {self.floored} of {self.points} "

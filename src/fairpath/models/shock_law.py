@@ -19,6 +19,7 @@ from fairpath.errors import InputError
 from fairpath.models.base import (
     Model,
     PathState,
+    ScalesWithSpot,
     Stepper,
     add_escrow,
     escrow_table,
@@ -75,7 +76,7 @@ class ShockLaw(Model):
         return LawSteps(models, correlation, times)
 
 
-class LawSteps(Stepper):
+class LawSteps(ScalesWithSpot, Stepper):
     """Correlated normals (Gaussian copula), each asset's inverse transform, scaled by the
     step's standard deviation, plus the drift."""
 
@@ -95,6 +96,7 @@ class LawSteps(Stepper):
         sdt = self.sd.T[:, :, None]
         with np.errstate(divide="ignore", invalid="ignore"):
             self.corr_factor = np.where(sdt > 0, factor / sdt, 0.0)
+        self.names = names
         self.log_start = escrowed_log_spots(market, names)
         self.escrow = escrow_table(market, names, self.times)
         self.notes = ()
