@@ -296,6 +296,18 @@ class ScalesWithSpot:
     then the base paths rescaled, with no new simulation. Needs ``names``, ``log_start`` and
     ``escrow`` (and ``times``) set by the stepper."""
 
+    def _start(self, models, times: np.ndarray, covariance: np.ndarray) -> None:
+        """What every such stepper sets: the grid, the names, each step's variance (the
+        diagonal of the step ``covariance``), the escrowed log spots and the escrow table."""
+        market = models[0].market
+        self.times = np.asarray(times, dtype=float)
+        self.names = tuple(m.name for m in models)
+        self.factors = len(models)
+        self.variance = np.stack([covariance[:, i, i] for i in range(len(models))])
+        self.log_start = escrowed_log_spots(market, self.names)
+        self.escrow = escrow_table(market, self.names, self.times)
+        self.notes = ()
+
     def respot(self, state: PathState, market: Market) -> PathState:
         new = escrowed_log_spots(market, self.names)
         x = state.log_levels.copy()

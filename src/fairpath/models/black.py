@@ -31,8 +31,6 @@ from fairpath.models.base import (
     ScalesWithSpot,
     Stepper,
     add_escrow,
-    escrow_table,
-    escrowed_log_spots,
     psd_cholesky,
 )
 from fairpath.registry import MODELS, Capability
@@ -105,18 +103,11 @@ class ExactSteps(ScalesWithSpot, Stepper):
     """Exact joint GBM steps on the grid (any step length), in a compiled loop."""
 
     def __init__(self, models, correlation: np.ndarray, times: np.ndarray):
-        names = tuple(m.name for m in models)
-        market = models[0].market
-        self.times = self.sim_times = np.asarray(times, dtype=float)
-        self.factors = len(models)
-        cov = step_covariance(models, correlation, self.times)
-        self.variance = np.stack([cov[:, i, i] for i in range(len(models))])
+        cov = step_covariance(models, correlation, times)
+        self._start(models, times, cov)
+        self.sim_times = self.times
         self.factor = np.stack([psd_cholesky(cov[k]) for k in range(len(self.times))])
         self.drift = log_forward_steps(models, self.times) - 0.5 * self.variance
-        self.names = names
-        self.log_start = escrowed_log_spots(market, names)
-        self.escrow = escrow_table(market, names, self.times)
-        self.notes = ()
 
     def simulate(self, z: np.ndarray) -> PathState:
         """The correlated increment of asset ``a`` is ``drift[a] + sum_b L[a, b] z[b]``,

@@ -25,8 +25,6 @@ from fairpath.models.base import (
     ScalesWithSpot,
     Stepper,
     add_escrow,
-    escrow_table,
-    escrowed_log_spots,
     psd_cholesky,
 )
 from fairpath.models.black import check_lognormal_tail, step_covariance
@@ -86,11 +84,8 @@ class LocalSteps(ScalesWithSpot, Stepper):
 
         if isinstance(sub, bool) or not isinstance(sub, int) or sub < 1:
             raise InputError(f"must be a positive integer, got {sub!r}", key="steps_per_day")
-        names = tuple(m.name for m in models)
-        market = models[0].market
-        self.times = np.asarray(times, dtype=float)
-        cov = step_covariance(models, correlation, self.times)
-        self.variance = np.stack([cov[:, i, i] for i in range(len(models))])
+        self._start(models, times, step_covariance(models, correlation, times))
+        names, market = self.names, models[0].market
         edges = np.concatenate([[0.0], self.times])
         pieces = [np.linspace(a, b, sub + 1)[1:] for a, b in
                   zip(edges[:-1], edges[1:], strict=True)]
@@ -119,10 +114,6 @@ class LocalSteps(ScalesWithSpot, Stepper):
         self.corr = psd_cholesky(correlation)
         self.grid_cols = np.arange(sub - 1, n_f, sub)
         self.sim_times = fine
-        self.factors = n_a
-        self.names = names
-        self.log_start = escrowed_log_spots(market, names)
-        self.escrow = escrow_table(market, names, self.times)
         self.notes = ((f"local variance floored at a 1% vol at {self.floored} of {self.points} "
                        "points of the table (where Dupire's formula is not positive: the "
                        "surface is close to an arbitrage there)",) if self.floored else ())

@@ -22,8 +22,6 @@ from fairpath.models.base import (
     ScalesWithSpot,
     Stepper,
     add_escrow,
-    escrow_table,
-    escrowed_log_spots,
     psd_cholesky,
 )
 from fairpath.models.black import check_lognormal_tail, log_forward_steps, step_covariance
@@ -81,12 +79,9 @@ class LawSteps(ScalesWithSpot, Stepper):
     step's standard deviation, plus the drift."""
 
     def __init__(self, models, correlation: np.ndarray, times: np.ndarray):
-        names = tuple(m.name for m in models)
-        market = models[0].market
-        self.times = self.sim_times = np.asarray(times, dtype=float)
-        self.factors = len(models)
-        cov = step_covariance(models, correlation, self.times)
-        self.variance = np.stack([cov[:, i, i] for i in range(len(models))])
+        cov = step_covariance(models, correlation, times)
+        self._start(models, times, cov)
+        self.sim_times = self.times
         factor = np.stack([psd_cholesky(cov[k]) for k in range(len(self.times))])
         self.laws = tuple(m.asset.law for m in models)
         self.sd = np.sqrt(self.variance)
@@ -96,10 +91,6 @@ class LawSteps(ScalesWithSpot, Stepper):
         sdt = self.sd.T[:, :, None]
         with np.errstate(divide="ignore", invalid="ignore"):
             self.corr_factor = np.where(sdt > 0, factor / sdt, 0.0)
-        self.names = names
-        self.log_start = escrowed_log_spots(market, names)
-        self.escrow = escrow_table(market, names, self.times)
-        self.notes = ()
 
     def simulate(self, z: np.ndarray) -> PathState:
         n_a = z.shape[1]
