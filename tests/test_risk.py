@@ -306,3 +306,17 @@ def test_desk_units_and_significance():
                      m, paths=1024, seed=1, method="bump")
     assert zero.correlation == {}  # one asset: no correlation
     assert np.isfinite(zero.dividend["NORDA"].value)
+
+
+def test_pathwise_delta_under_local_vol_matches_the_bump():
+    # local vol from a surface quoted in fractions of spot: every level is proportional to the
+    # spot (no cash dividends on VIREO), so the pathwise delta S_T/S_0 applies; reference: the
+    # central spot bump on the same random numbers (its O(h^2) bias allowed for by 0.5%)
+    market = fp.load_market(SMILE)
+    call = fp.European(asset="VIREO", right="call", strike=220.0, expiry=EXPIRY)
+    auto = fp.greeks(call, market, paths=16384, seed=12, method="auto")
+    bump = fp.greeks(call, market, paths=16384, seed=12, method="bump")
+    assert auto.delta["VIREO"].method == "pathwise"
+    assert auto.vega["VIREO"].method.startswith("bump")  # no flat vol: vega stays bumped
+    a, b = auto.delta["VIREO"], bump.delta["VIREO"]
+    assert abs(a.value - b.value) <= 4 * math.hypot(a.stderr, b.stderr) + 0.005 * abs(b.value)

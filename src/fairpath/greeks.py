@@ -475,8 +475,8 @@ def greeks(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
     lr_ok = usable(product.kind, Shortcut.LIKELIHOOD_RATIO, caps) and product.score_safe()
     if use_pathwise and not usable(product.kind, Shortcut.PATHWISE, caps):
         use_pathwise = False
-        notes.append("pathwise estimators need levels proportional to the spot and a flat "
-                     "vol (no surface, no cash dividends): delta and vega are bumped")
+        notes.append("pathwise estimators need levels proportional to the spot (no cash "
+                     "dividends): delta and vega are bumped")
     elif use_pathwise and Capability.FLAT_VOL not in caps:
         notes.append("pathwise vega needs normal shocks and a flat vol: vega is bumped")
     if method == "pathwise" and not use_pathwise:

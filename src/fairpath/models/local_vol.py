@@ -50,7 +50,11 @@ class LocalVol(Model):
 
     @property
     def capabilities(self) -> frozenset[Capability]:
-        return frozenset({Capability.FORWARD})
+        if self.market.dividend_times(self.name):
+            return frozenset({Capability.FORWARD})
+        # the surface's strikes are fractions of the spot: the path in moneyness against the
+        # forward does not depend on the spot, so every level is proportional to it
+        return frozenset({Capability.FORWARD, Capability.SPOT_SCALING})
 
     @property
     def daily(self) -> bool:
