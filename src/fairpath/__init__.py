@@ -27,6 +27,7 @@ from fairpath.products import (
     load_product,
 )
 from fairpath.quotes import QuoteCheck, QuoteChecks, check_quote, check_quotes
+from fairpath.scenarios import ScenarioGrid, scenarios
 from fairpath.solve import SolveResult, solve
 
 __version__ = "0.1.0"
@@ -37,6 +38,7 @@ __all__ = [
     "Formula", "GreekProfile", "GreeksResult", "InputError", "Law", "Market", "Model", "ModelSet",
     "NormalLaw",
     "PriceResult", "Product", "QuoteCheck", "QuoteChecks", "REGISTRY", "SamplingWarning",
-    "SolveResult", "StudentT", "VolCurve", "check_quote", "check_quotes", "greek_profile",
-    "greeks", "load_market", "load_product", "price", "price_book", "price_many", "solve",
+    "ScenarioGrid", "SolveResult", "StudentT", "VolCurve", "check_quote", "check_quotes",
+    "greek_profile", "greeks", "load_market", "load_product", "price", "price_book",
+    "price_many", "scenarios", "solve",
 ]

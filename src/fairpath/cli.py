@@ -160,6 +160,25 @@ def build_parser() -> argparse.ArgumentParser:
     _add_law_options(g)
     g.add_argument("--json", action="store_true", help="print one JSON object")
 
+    sc = sub.add_parser("scenarios", help="value over a grid of spot and vol moves, every cell "
+                        "on the same random numbers")
+    # a spec may start with a minus sign (--spot -0.3:0.3:0.1): read it as a value, not a
+    # flag (argparse before Python 3.13 takes only plain negative numbers for values)
+    import re
+
+    sc._negative_number_matcher = re.compile(r"^-\.?\d")
+    sc.add_argument("product", help="product TOML file")
+    sc.add_argument("--market", required=True, help="market TOML file")
+    sc.add_argument("--spot", default="-0.3:0.3:0.1", metavar="A:B:STEP",
+                    help="relative moves of every spot together (default %(default)s)")
+    sc.add_argument("--vol", default="-0.05:0.05:0.05", metavar="A:B:STEP",
+                    help="absolute moves of every vol or whole surface (default %(default)s)")
+    sc.add_argument("--plot", default=None, metavar="FILE.png",
+                    help="write a heatmap of the value change (base cell marked)")
+    _add_mc_options(sc)
+    _add_law_options(sc)
+    sc.add_argument("--json", action="store_true", help="print one JSON object")
+
     c = sub.add_parser("check", help="is each dealer quote in a CSV fair, rich or cheap?")
     c.add_argument("quotes", help="CSV with columns product,quote[,tolerance]")
     c.add_argument("--market", required=True, help="market TOML file")
@@ -218,6 +237,8 @@ def main(argv: list[str] | None = None) -> int:
             return _check(args)
         if args.command == "greeks":
             return _greeks(args)
+        if args.command == "scenarios":
+            return _scenarios(args)
         if args.command == "solve":
             return _solve(args)
         if args.command == "validate":
@@ -331,6 +352,30 @@ def _greeks(args) -> int:
                  method=args.method, replicates=args.replicates, source=args.product,
                  steps_per_day=args.steps_per_day, buckets=args.buckets)
     return _emit(res, args.json)
+
+
+def _scenarios(args) -> int:
+    from fairpath.scenarios import check_plot_path, scenarios, shift_list, write_plot
+
+    shift_list(args.spot, "--spot")  # refuse a bad grid before anything else
+    shift_list(args.vol, "--vol")
+    if args.plot:
+        check_plot_path(args.plot)  # refuse an unwritable picture before any pricing
+    market = _market(args)
+    product = load_product(args.product)
+    res = scenarios(product, market, spot_shifts=args.spot, vol_shifts=args.vol,
+                    paths=args.paths, sampler=args.sampler, seed=args.seed,
+                    replicates=args.replicates, steps_per_day=args.steps_per_day,
+                    source=args.product, progress=not args.json and sys.stderr.isatty())
+    if args.plot:
+        write_plot(res, args.plot)
+    if args.json:
+        print(res.to_json())
+    else:
+        print(res)
+        if args.plot:
+            print(f"heatmap written to {args.plot}")
+    return 0
 
 
 def _solve(args) -> int:
