@@ -1,4 +1,4 @@
-"""Command line: ``fairpath price | greeks | check | solve | book | validate | demo``.
+"""Command line: ``fairpath price | greeks | scenarios | check | solve | book | validate | demo``.
 
 Exit status: 0 on success, 2 on bad input (one line on stderr naming the file, the key and the
 problem), 1 on an internal error.
