@@ -43,6 +43,7 @@ from fairpath.estimate import CAUTION, DEFAULT_PATHS, price
 from fairpath.inputs import read_csv_table
 from fairpath.laws import Law
 from fairpath.market import Market, VolCurve
+from fairpath.models import ModelSet
 from fairpath.products.base import Product
 from fairpath.products.loader import load_product
 from fairpath.sampling import normalize_seed
@@ -260,7 +261,8 @@ def check_quote(product: Product, market: Market, quote: float, *, vol_band: flo
         except InputError as exc:
             note = (note + "; " if note else "") + f"no fair coupon: {exc.problem}"
     other = {}
-    if market.local_vol(names):  # how much of the value is the smile
+    if any(m.kind == "local-vol" for m in ModelSet.resolve(market, names).models):
+        # how much of the value is the smile
         other["flat_vol_price"] = price(product, market.with_flat_vol(names), **settings).price
     if compare_law is not None:
         alt = price(product, market.with_law(compare_law, names), **settings)
