@@ -90,6 +90,13 @@ class Model:
     def daily(self) -> bool:
         return False
 
+    def forward_and_scaling(self) -> frozenset[Capability]:
+        """What a model whose escrowed part moves in proportion to its start declares: the
+        forward, and spot scaling unless cash dividends (which do not scale) are to come."""
+        if self.market.dividend_times(self.name):
+            return frozenset({Capability.FORWARD})
+        return frozenset({Capability.FORWARD, Capability.SPOT_SCALING})
+
     def check_run(self, variance: np.ndarray, paths: int) -> None:
         """Refuse a run of ``paths`` paths whose step variances ``variance`` (this asset's row,
         one value per grid step) put the forward where no path goes. Nothing by default."""

@@ -58,10 +58,10 @@ class Black(Model):
 
     @property
     def capabilities(self) -> frozenset[Capability]:
-        if self.market.dividend_times(self.name):  # levels not proportional to the spot
-            return frozenset({Capability.FORWARD})
-        caps = {Capability.FORWARD, Capability.LOGNORMAL, Capability.SCORE,
-                Capability.SPOT_SCALING, Capability.EXACT_BRIDGE}
+        caps = set(self.forward_and_scaling())
+        if Capability.SPOT_SCALING not in caps:  # cash dividends: levels not lognormal
+            return frozenset(caps)
+        caps |= {Capability.LOGNORMAL, Capability.SCORE, Capability.EXACT_BRIDGE}
         vol = self.asset.vol
         if vol.is_flat and vol.vols[0] > 0:
             caps.add(Capability.FLAT_VOL)

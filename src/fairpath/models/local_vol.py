@@ -50,11 +50,9 @@ class LocalVol(Model):
 
     @property
     def capabilities(self) -> frozenset[Capability]:
-        if self.market.dividend_times(self.name):
-            return frozenset({Capability.FORWARD})
         # the surface's strikes are fractions of the spot: the path in moneyness against the
         # forward does not depend on the spot, so every level is proportional to it
-        return frozenset({Capability.FORWARD, Capability.SPOT_SCALING})
+        return self.forward_and_scaling()
 
     @property
     def daily(self) -> bool:

@@ -47,10 +47,8 @@ class ShockLaw(Model):
 
     @property
     def capabilities(self) -> frozenset[Capability]:
-        if self.market.dividend_times(self.name):
-            return frozenset({Capability.FORWARD})
         # every step multiplies the level by a factor that does not depend on the spot
-        return frozenset({Capability.FORWARD, Capability.SPOT_SCALING})
+        return self.forward_and_scaling()
 
     @property
     def daily(self) -> bool:
