@@ -50,7 +50,7 @@ from fairpath.errors import InputError
 from fairpath.market import Market
 from fairpath.models import ModelSet
 from fairpath.products.base import PathSet, Product
-from fairpath.registry import Capability, Shortcut, usable
+from fairpath.registry import LIKELIHOOD_RATIO, PATHWISE, Capability, Estimator, Shortcut, usable
 from fairpath.results import CAUTION
 from fairpath.sampling import DEFAULT_REPLICATES
 
@@ -293,10 +293,11 @@ def likelihood_ratio(y: np.ndarray, x1: np.ndarray, spots: np.ndarray, mean: np.
     out = {}
     n = len(names)
     for i in range(n):
-        out[f"lr delta {names[i]}"] = y * a[:, i] / spots[i]
-        out[f"lr gamma {names[i]}"] = y * (a[:, i] ** 2 - inv[i, i] - a[:, i]) / spots[i] ** 2
+        out[Estimator(LIKELIHOOD_RATIO, "delta", names[i])] = y * a[:, i] / spots[i]
+        out[Estimator(LIKELIHOOD_RATIO, "gamma", names[i])] = \
+            y * (a[:, i] ** 2 - inv[i, i] - a[:, i]) / spots[i] ** 2
         for k in range(i + 1, n):
-            out[f"lr cross {names[i]}/{names[k]}"] = \
+            out[Estimator(LIKELIHOOD_RATIO, "cross", f"{names[i]}/{names[k]}")] = \
                 y * (a[:, i] * a[:, k] - inv[i, k]) / (spots[i] * spots[k])
     return out
 
@@ -500,7 +501,7 @@ def greeks(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
             mean, cov = stepper.first_step()
             first = ps.grid_log_levels[:, :, 0]
             cols.update(likelihood_ratio(payoff, first, ps.spots, mean, cov, names))
-        keys = sorted(cols)
+        keys = sorted(cols, key=lambda e: e.label)
         holder["names"] = keys
         return [cols[k] for k in keys]
 
@@ -523,7 +524,7 @@ def greeks(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
     smp = res.sampler
     blocks = res.blocks
     moments = res.moments(0)
-    pw_names: list[str] = list(holder.get("names", []))
+    pw_names: list[Estimator] = list(holder.get("names", []))
 
     pooled = merge_all([moments[b] for b in blocks])
     if smp.replicates is not None:
@@ -550,7 +551,7 @@ def greeks(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
     delta, gamma, vega, cross = {}, {}, {}, {}
     n_scen = len(scen)
     pw_index = {k: n_scen + i for i, k in enumerate(pw_names)}
-    def pick(bumped: Greek, lr_key: str) -> Greek:
+    def pick(bumped: Greek, lr_key: Estimator) -> Greek:
         """``lr``: the likelihood-ratio estimate. ``auto`` (payoffs that jump): the likelihood
         ratio, whose error bar is trustworthy, unless it is more than LR_NOISE times noisier
         than a bump whose error bar is not zero (a bump of a jumping payoff can show an error
@@ -569,15 +570,16 @@ def greeks(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
         s = market.asset(n).spot
         h = SPOT_BUMP * s
         up, dn = index[f"S+ {n}"], index[f"S- {n}"]
-        if f"delta {n}" in pw_index:
-            delta[n] = combo({pw_index[f"delta {n}"]: 1.0}, "pathwise")
+        if Estimator(PATHWISE, "delta", n) in pw_index:
+            delta[n] = combo({pw_index[Estimator(PATHWISE, "delta", n)]: 1.0}, "pathwise")
         else:
             delta[n] = pick(combo({up: 0.5 / h, dn: -0.5 / h}, "bump (central, common numbers)"),
-                            f"lr delta {n}")
+                            Estimator(LIKELIHOOD_RATIO, "delta", n))
         gamma[n] = pick(combo({up: 1 / h**2, 0: -2 / h**2, dn: 1 / h**2},
-                              "bump (central, common numbers)"), f"lr gamma {n}")
-        if f"vega {n}" in pw_index:
-            vega[n] = combo({pw_index[f"vega {n}"]: 1.0}, "pathwise")
+                              "bump (central, common numbers)"),
+                        Estimator(LIKELIHOOD_RATIO, "gamma", n))
+        if Estimator(PATHWISE, "vega", n) in pw_index:
+            vega[n] = combo({pw_index[Estimator(PATHWISE, "vega", n)]: 1.0}, "pathwise")
         else:
             vega[n] = combo({index[f"v+ {n}"]: 0.5 / dvs[n], index[f"v- {n}"]: -0.5 / dvs[n]},
                             "bump (central, common numbers)")
@@ -589,7 +591,7 @@ def greeks(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
                                         index[f"S-1+1 {a}/{b}"]: -c,
                                         index[f"S-1-1 {a}/{b}"]: c},
                                        "bump (four corners, common numbers)"),
-                                 f"lr cross {a}/{b}")
+                                 Estimator(LIKELIHOOD_RATIO, "cross", f"{a}/{b}"))
     rho = combo({index["r+"]: 0.5 / RATE_BUMP, index["r-"]: -0.5 / RATE_BUMP},
                 "bump (central, common numbers)")
     theta = None

@@ -22,6 +22,7 @@ otherwise the plain payoff, which is right under any model.
 from __future__ import annotations
 
 import enum
+import typing
 from collections.abc import Iterable
 
 
@@ -57,6 +58,25 @@ class Shortcut(enum.Enum):
     EXACT_BRIDGE = "exact Brownian-bridge correction"
     CLOSED_FORM = "closed form"
 
+
+class Estimator(typing.NamedTuple):
+    """The name of a per-path estimator of a Greek handed from a product or a model to the
+    Greeks: ``method`` ("pathwise" or "likelihood ratio"), ``greek`` ("delta", "vega",
+    "gamma", "cross") and ``assets`` (one name, or a pair ``"A/B"``)."""
+
+    method: str
+    greek: str
+    assets: str
+
+    @property
+    def label(self) -> str:
+        """A stable text form (the order of the estimator columns follows it)."""
+        head = "lr " if self.method == LIKELIHOOD_RATIO else ""
+        return f"{head}{self.greek} {self.assets}"
+
+
+PATHWISE = "pathwise"
+LIKELIHOOD_RATIO = "likelihood ratio"
 
 #: model kind -> model class (filled by each model class as it is defined)
 MODELS: dict[str, type] = {}

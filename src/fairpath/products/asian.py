@@ -46,7 +46,7 @@ from fairpath.products.base import (
     single_asset_quantity,
 )
 from fairpath.products.vanilla import RIGHTS
-from fairpath.registry import Capability, Shortcut, register_shortcut
+from fairpath.registry import Capability, Estimator, Shortcut, register_shortcut
 
 AVERAGES = ("arithmetic", "geometric")
 
@@ -263,7 +263,7 @@ class Asian(Product):
     def has_pathwise(self, market: Market) -> bool:
         return not self.floating and bool(self.future_fixings)
 
-    def pathwise(self, paths: PathSet) -> dict[str, np.ndarray]:
+    def pathwise(self, paths: PathSet) -> dict[Estimator, np.ndarray]:
         ps = paths
         n = len(self.fixings)
         cols = [ps.dates.index(d) for d in self.future_fixings]

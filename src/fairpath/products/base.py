@@ -19,7 +19,7 @@ import numpy as np
 from fairpath.errors import InputError
 from fairpath.inputs import MAX_AMOUNT, did_you_mean, show
 from fairpath.market import Market
-from fairpath.registry import Capability, Shortcut, usable
+from fairpath.registry import PATHWISE, Capability, Estimator, Shortcut, usable
 
 #: kind name -> product class
 REGISTRY: dict[str, type[Product]] = {}
@@ -228,9 +228,10 @@ class Product:
         """Does :meth:`pathwise` give estimators for this product on this market?"""
         return False
 
-    def pathwise(self, paths: PathSet) -> dict[str, np.ndarray]:
-        """Per-path derivatives of the discounted payoff: keys ``"delta NAME"`` and, where the
-        vol is flat, ``"vega NAME"`` (see :func:`level_sensitivities`)."""
+    def pathwise(self, paths: PathSet) -> dict[Estimator, np.ndarray]:
+        """Per-path derivatives of the discounted payoff, keyed by
+        ``Estimator(PATHWISE, "delta", NAME)`` and, where the vol is flat,
+        ``Estimator(PATHWISE, "vega", NAME)`` (see :func:`level_sensitivities`)."""
         return {}
 
     def struck(self, market: Market) -> Product:
@@ -327,14 +328,14 @@ def level_sensitivities(ps: PathSet) -> tuple[np.ndarray, np.ndarray | None]:
     return d_spot, ps.levels * (w - sig * t)
 
 
-def pathwise_from_gradient(ps: PathSet, grad: np.ndarray) -> dict[str, np.ndarray]:
+def pathwise_from_gradient(ps: PathSet, grad: np.ndarray) -> dict[Estimator, np.ndarray]:
     """Pathwise delta and vega of every asset from d payoff / d level, (paths, assets, dates)."""
     d_spot, d_vol = level_sensitivities(ps)
     out = {}
     for i, n in enumerate(ps.names):
-        out[f"delta {n}"] = np.sum(grad[:, i, :] * d_spot[:, i, :], axis=1)
+        out[Estimator(PATHWISE, "delta", n)] = np.sum(grad[:, i, :] * d_spot[:, i, :], axis=1)
         if d_vol is not None:
-            out[f"vega {n}"] = np.sum(grad[:, i, :] * d_vol[:, i, :], axis=1)
+            out[Estimator(PATHWISE, "vega", n)] = np.sum(grad[:, i, :] * d_vol[:, i, :], axis=1)
     return out
 
 

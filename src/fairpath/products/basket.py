@@ -45,7 +45,7 @@ from fairpath.products.base import (
     read_initial_levels,
 )
 from fairpath.products.vanilla import RIGHTS
-from fairpath.registry import Capability, Shortcut, register_shortcut
+from fairpath.registry import Capability, Estimator, Shortcut, register_shortcut
 
 COMBINES = ("worst", "best", "average")
 #: Strikes (as multiples of the basket's) of the pair controls when the last asset is
@@ -368,7 +368,7 @@ class Basket(Product):
     def has_pathwise(self, market: Market) -> bool:
         return True
 
-    def pathwise(self, paths: PathSet) -> dict[str, np.ndarray]:
+    def pathwise(self, paths: PathSet) -> dict[Estimator, np.ndarray]:
         ps = paths
         init = self.initial(ps.market)
         perf = self.performances(ps)

@@ -18,7 +18,7 @@ from fairpath.products.base import (
     pathwise_from_gradient,
     single_asset_quantity,
 )
-from fairpath.registry import Capability, Shortcut, register_shortcut
+from fairpath.registry import Capability, Estimator, Shortcut, register_shortcut
 
 RIGHTS = ("call", "put")
 
@@ -78,7 +78,7 @@ class European(OneAssetAtExpiry):
     def has_pathwise(self, market: Market) -> bool:
         return True
 
-    def pathwise(self, paths: PathSet) -> dict[str, np.ndarray]:
+    def pathwise(self, paths: PathSet) -> dict[Estimator, np.ndarray]:
         s = paths.levels[:, 0, :]
         ind = (s > self.strike) if self.right == "call" else -(s < self.strike).astype(float)
         grad = (ind * (paths.df(self.expiry) * self.quantity))[:, None, :]
