@@ -350,7 +350,8 @@ def _greeks(args) -> int:
     product = load_product(args.product)
     res = greeks(product, market, paths=args.paths, sampler=args.sampler, seed=args.seed,
                  method=args.method, replicates=args.replicates, source=args.product,
-                 steps_per_day=args.steps_per_day, buckets=args.buckets)
+                 steps_per_day=args.steps_per_day, buckets=args.buckets,
+                 progress=not args.json and sys.stderr.isatty())
     return _emit(res, args.json)
 
 

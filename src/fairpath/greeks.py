@@ -311,7 +311,7 @@ def greeks(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
            cross_gamma: bool = True, source: str | None = None,
            stream: tuple[int, ...] = (), steps_per_day: int = 1,
            threads: int | None = None, correlation: bool = True, dividends: bool = True,
-           buckets: str | None = None) -> GreeksResult:
+           buckets: str | None = None, progress: bool = False) -> GreeksResult:
     """Delta, gamma (and cross-gammas), vega per asset, rho and theta, each with its error.
 
     Parameters
@@ -339,7 +339,7 @@ def greeks(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
     source = source or product.source
     settings = Settings(paths=paths, sampler=sampler, seed=seed, antithetic=antithetic,
                         replicates=replicates, control=False, threads=threads,
-                        steps_per_day=steps_per_day, stream=stream)
+                        steps_per_day=steps_per_day, stream=stream, progress=progress)
     settings.make_sampler()  # refuse bad sampler settings before anything else
     product.check(market, source)
     product = product.struck(market)
