@@ -517,6 +517,15 @@ class Simulation:
                 for p, c, ps in zip(self.products, self.controls, self.pathsets(x), strict=True)]
 
 
+def replicate_means(moments: dict[Block, Moments], blocks: list[Block]) -> np.ndarray:
+    """(scramblings, columns): the mean of each Sobol scrambling's blocks, in scrambling order
+    (randomized QMC: their spread is the error)."""
+    reps: dict[int, list[Moments]] = {}
+    for blk in blocks:
+        reps.setdefault(blk.replicate, []).append(moments[blk])
+    return np.array([merge_all(v).mean for _, v in sorted(reps.items())])
+
+
 def combine(moments: dict[Block, Moments], blocks: list[Block], controls: list[ControlVariate],
             sampler: Sampler, force: tuple[str, ...] | None = None) -> Estimate:
     """Price, standard error and interval from the blocks' moments (see the module notes).
@@ -536,10 +545,7 @@ def combine(moments: dict[Block, Moments], blocks: list[Block], controls: list[C
     usable = [i for i in range(len(controls)) if var_x[i] > 1e-13 * scale[i]]
 
     if sampler.replicates is not None:
-        reps: dict[int, list[Moments]] = {}
-        for blk in blocks:
-            reps.setdefault(blk.replicate, []).append(moments[blk])
-        groups = np.array([merge_all(v).mean for _, v in sorted(reps.items())])
+        groups = replicate_means(moments, blocks)
         quant = float(stats.t.ppf(0.975, len(groups) - 1))
     else:
         groups = None
@@ -616,6 +622,29 @@ class Run:
 
     def moments(self, j: int = 0) -> dict[Block, Moments]:
         return {b: self.cache[b].moments[j] for b in self.blocks}
+
+    def weighted(self, j: int = 0) -> Callable[[dict[int, float]], tuple[float, float]]:
+        """``combo(weights) -> (value, stderr)``: a weighted sum of product ``j``'s columns (a
+        Greek, a change between scenarios), its error from the spread of the sum itself:
+        across the Sobol scramblings, or ``w' Cov w / N`` for pseudo-random numbers; never
+        from the columns' own errors."""
+        moments = self.moments(j)
+        pooled = merge_all([moments[b] for b in self.blocks])
+        groups = replicate_means(moments, self.blocks) \
+            if self.sampler.replicates is not None else None
+        width = pooled.mean.shape[0]
+
+        def combo(weights: dict[int, float]) -> tuple[float, float]:
+            w = np.zeros(width)
+            for i, c in weights.items():
+                w[i] += c
+            if groups is not None:
+                est = groups @ w
+                return float(est.mean()), float(np.std(est, ddof=1) / math.sqrt(len(est)))
+            var = float(w @ pooled.cov() @ w) / pooled.n
+            return float(pooled.mean @ w), math.sqrt(max(var, 0.0))
+
+        return combo
 
 
 def prepare(products: list[Product], market: Market, source: str | None = None

@@ -37,7 +37,6 @@ from __future__ import annotations
 
 import dataclasses
 import json
-import math
 import time
 from dataclasses import dataclass, field
 
@@ -45,7 +44,7 @@ import numpy as np
 
 from fairpath import bumps as bump
 from fairpath.dates import year_fraction
-from fairpath.engine import DEFAULT_PATHS, Settings, merge_all, prepare, run
+from fairpath.engine import DEFAULT_PATHS, Settings, prepare, run
 from fairpath.errors import InputError
 from fairpath.market import Market
 from fairpath.models import ModelSet
@@ -522,30 +521,12 @@ def greeks(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
     notes.extend(div_notes)
     notes.extend(res.notes)
     smp = res.sampler
-    blocks = res.blocks
-    moments = res.moments(0)
     pw_names: list[Estimator] = list(holder.get("names", []))
 
-    pooled = merge_all([moments[b] for b in blocks])
-    if smp.replicates is not None:
-        reps: dict[int, list] = {}
-        for b in blocks:
-            reps.setdefault(b.replicate, []).append(moments[b])
-        groups = np.array([merge_all(v).mean for _, v in sorted(reps.items())])
-    else:
-        groups = None
-    width = pooled.mean.shape[0]
+    weighted = res.weighted(0)
 
     def combo(weights: dict[int, float], label: str) -> Greek:
-        w = np.zeros(width)
-        for i, c in weights.items():
-            w[i] += c
-        if groups is not None:
-            est = groups @ w
-            return Greek(float(est.mean()), float(np.std(est, ddof=1) / math.sqrt(len(est))),
-                         label)
-        var = float(w @ pooled.cov() @ w) / pooled.n
-        return Greek(float(pooled.mean @ w), math.sqrt(max(var, 0.0)), label)
+        return Greek(*weighted(weights), label)
 
     base = combo({0: 1.0}, "")
     delta, gamma, vega, cross = {}, {}, {}, {}

@@ -37,7 +37,7 @@ from pathlib import Path
 import numpy as np
 
 from fairpath import bumps as bump
-from fairpath.engine import DEFAULT_PATHS, Run, Settings, merge_all, prepare, run
+from fairpath.engine import DEFAULT_PATHS, Settings, prepare, run
 from fairpath.errors import InputError
 from fairpath.market import Market
 from fairpath.products.base import Product
@@ -320,34 +320,6 @@ def _spot_moved(market: Market, names: tuple[str, ...], s: float) -> Market:
     return out
 
 
-def _columns(res: Run):
-    """``combo(weights) -> (value, stderr)`` of a weighted sum of one run's scenario columns,
-    its error from the spread of the sum itself (Sobol: over the scramblings; pseudo: the
-    covariance over paths)."""
-    moments = res.moments(0)
-    blocks = res.blocks
-    pooled = merge_all([moments[b] for b in blocks])
-    groups = None
-    if res.sampler.replicates is not None:
-        reps: dict[int, list] = {}
-        for b in blocks:
-            reps.setdefault(b.replicate, []).append(moments[b])
-        groups = np.array([merge_all(v).mean for _, v in sorted(reps.items())])
-    width = pooled.mean.shape[0]
-
-    def combo(weights: dict[int, float]) -> tuple[float, float]:
-        w = np.zeros(width)
-        for i, c in weights.items():
-            w[i] += c
-        if groups is not None:
-            est = groups @ w
-            return float(est.mean()), float(np.std(est, ddof=1) / math.sqrt(len(est)))
-        var = float(w @ pooled.cov() @ w) / pooled.n
-        return float(pooled.mean @ w), math.sqrt(max(var, 0.0))
-
-    return combo
-
-
 # ---------------------------------------------------------------------------------------------
 # Entry point
 # ---------------------------------------------------------------------------------------------
@@ -427,7 +399,7 @@ def scenarios(product: Product, market: Market, *, spot_shifts=DEFAULT_SPOT,
                                  source=source)
             if not run_notes:
                 run_notes = list(res.notes)
-            combo = _columns(res)
+            combo = res.weighted(0)
             values[bi, bj], errs[bi, bj] = combo({0: 1.0})
             for k, (i, j, _) in enumerate(chunk, start=1):
                 values[i, j], errs[i, j] = combo({k: 1.0})
