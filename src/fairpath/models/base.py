@@ -166,6 +166,14 @@ class ModelSet:
     names: tuple[str, ...]
     models: tuple[Model, ...]
     correlation: np.ndarray
+    #: what every one of the models declares (worked out once: payoffs ask on every batch)
+    capabilities: frozenset[Capability] = field(init=False)
+
+    def __post_init__(self):
+        caps = frozenset(Capability)
+        for m in self.models:
+            caps &= m.capabilities
+        object.__setattr__(self, "capabilities", caps)
 
     @classmethod
     def resolve(cls, market: Market, names, *, source: str | None = None) -> ModelSet:
@@ -178,14 +186,6 @@ class ModelSet:
     @property
     def spots(self) -> np.ndarray:
         return np.array([self.market.asset(n).spot for n in self.names])
-
-    @property
-    def capabilities(self) -> frozenset[Capability]:
-        """What every one of the models declares."""
-        caps = frozenset(Capability)
-        for m in self.models:
-            caps &= m.capabilities
-        return caps
 
     def has(self, capability: Capability) -> bool:
         return capability in self.capabilities
