@@ -40,17 +40,28 @@ def _reattach(market: Market, asset, curve: DiscountCurve | None = None, surface
 
 
 def spot(market: Market, name: str, factor: float) -> Market:
-    """The spot of ``name`` times ``factor``."""
+    """The spot of ``name`` times ``factor`` (refused when it would fall to or below the value
+    of the asset's cash dividends to come, as loading such a file is)."""
     a = market.asset(name)
-    return market.with_asset(dataclasses.replace(a, spot=a.spot * factor))
+    out = market.with_asset(dataclasses.replace(a, spot=a.spot * factor))
+    if out.dividend_times(name) and not out.escrowed_spot(name) > 0:
+        raise InputError(f"a spot move leaves {name}'s spot {out.asset(name).spot:g} below the "
+                         f"value of its cash dividends to come "
+                         f"({float(out.escrow(name, 0.0)):g})", source=market.source,
+                         key=f"assets.{name}.spot")
+    return out
+
+
+def lowest_vol(market: Market, name: str) -> float:
+    """The lowest vol the asset is quoted at (its term structure's, or its surface's)."""
+    a = market.asset(name)
+    return min(a.vol.vols) if a.surface is None else min(min(r) for r in a.surface.vols)
 
 
 def vol_bump_size(market: Market, name: str, dv: float) -> float:
     """``dv``, or half the lowest quoted vol of the asset when that is smaller (so a low vol is
     bumped relative to its size, never through zero)."""
-    a = market.asset(name)
-    low = min(a.vol.vols) if a.surface is None else min(min(r) for r in a.surface.vols)
-    return min(dv, 0.5 * low)
+    return min(dv, 0.5 * lowest_vol(market, name))
 
 
 def vol(market: Market, name: str, dv: float, *, tenor: int | None = None,

@@ -287,16 +287,11 @@ class ScenarioGrid:
 # ---------------------------------------------------------------------------------------------
 # Scenario markets
 # ---------------------------------------------------------------------------------------------
-def _lowest_vol(market: Market, name: str) -> float:
-    a = market.asset(name)
-    return min(a.vol.vols) if a.surface is None else min(min(r) for r in a.surface.vols)
-
-
 def _vol_moved(market: Market, names: tuple[str, ...], v: float) -> Market:
     """Every vol of ``names`` moved by ``v`` (refusals name ``--vol``)."""
     out = market
     for n in names:
-        low = _lowest_vol(market, n)
+        low = bump.lowest_vol(market, n)
         if not low + v > 0:
             raise InputError(f"a vol move of {v:+g} makes {n}'s vol non-positive (its lowest "
                              f"vol is {low:g}, so moves must be above {-low:g})", key="--vol")
@@ -312,11 +307,11 @@ def _spot_moved(market: Market, names: tuple[str, ...], s: float) -> Market:
     """Every spot of ``names`` times ``1 + s`` (refusals name ``--spot``)."""
     out = market
     for n in names:
-        out = bump.spot(out, n, 1.0 + s)
-        if out.dividend_times(n) and not out.escrowed_spot(n) > 0:
-            raise InputError(f"a spot move of {s:+g} leaves {n}'s spot "
-                             f"{out.asset(n).spot:g} below the value of its cash dividends "
-                             f"to come ({float(out.escrow(n, 0.0)):g})", key="--spot")
+        try:
+            out = bump.spot(out, n, 1.0 + s)
+        except InputError as exc:
+            raise InputError(f"a spot move of {s:+g} is refused for {n}: {exc.problem}",
+                             key="--spot") from None
     return out
 
 
