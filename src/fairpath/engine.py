@@ -205,6 +205,9 @@ class ScenarioSetup:
     #: differs from the first scenario by its spots only: its paths may be the first
     #: scenario's rescaled (``Stepper.respot``), with no new simulation
     spots_only: bool = False
+    #: per asset: is its path the first scenario's (the same inputs: a bump of another
+    #: asset's vol or dividends)? None when every asset is simulated again
+    keep: np.ndarray | None = None
 
     @property
     def spots(self) -> np.ndarray:
@@ -277,7 +280,12 @@ class Simulation:
                 base = self.setups[0]
                 return ScenarioSetup(m, models, base.times, base.stepper, True)
         stepper = models.stepper(times, self.steps_per_day) if len(dates) else None
-        return ScenarioSetup(m, models, times, stepper)
+        keep = None
+        if not first and stepper is not None and self.setups[0].stepper is not None:
+            keep = stepper.unchanged(self.setups[0].stepper)
+            if keep is not None and not keep.any():
+                keep = None
+        return ScenarioSetup(m, models, times, stepper, keep=keep)
 
     def _spots_only(self, m: Market) -> bool:
         """Does ``m`` differ from the first scenario's market in its spots alone?"""
@@ -338,6 +346,10 @@ class Simulation:
             state = None
             if setup.spots_only and base_state is not None:
                 state = setup.stepper.respot(base_state, setup.market)
+            elif setup.keep is not None and base_state is not None:
+                # only some assets' inputs moved: the others' paths are the base's
+                state = base_state if setup.keep.all() else \
+                    setup.stepper.simulate_changed(z.copy(), base_state, setup.keep)
             if state is None:
                 state = setup.stepper.simulate(z.copy() if many else z)
             if k == 0:

@@ -97,9 +97,11 @@ def uniforms_to_normals(u: np.ndarray, clip: float) -> np.ndarray:
 
 @njit(cache=True, nogil=True)
 def _log_paths(z: np.ndarray, drift: np.ndarray, factor: np.ndarray,
-               log_spots: np.ndarray) -> None:
+               log_spots: np.ndarray, active: np.ndarray) -> None:
     n, n_a, n_s = z.shape
     if n_a == 1:  # one asset: a running sum per path
+        if not active[0]:
+            return
         for i in range(n):
             acc = log_spots[0]
             for k in range(n_s):
@@ -111,6 +113,8 @@ def _log_paths(z: np.ndarray, drift: np.ndarray, factor: np.ndarray,
             # assets from the last down: asset a reads the normals of assets b <= a, which are
             # still untouched when it overwrites its own
             for a in range(n_a - 1, -1, -1):
+                if not active[a]:
+                    continue
                 inc = drift[a, k]
                 for b in range(a + 1):
                     inc += factor[k, a, b] * z[i, b, k]
@@ -119,16 +123,22 @@ def _log_paths(z: np.ndarray, drift: np.ndarray, factor: np.ndarray,
 
 
 def log_paths(z: np.ndarray, drift: np.ndarray, factor: np.ndarray,
-              log_spots: np.ndarray) -> np.ndarray:
+              log_spots: np.ndarray, active: np.ndarray | None = None) -> np.ndarray:
     """Log-levels on the grid from step normals ``z`` (paths, assets, steps), in place:
     ``x[a, k] = x[a, k-1] + drift[a, k] + sum_{b <= a} factor[k, a, b] z[b, k]``,
-    ``x[a, -1] = log_spots[a]``."""
+    ``x[a, -1] = log_spots[a]``. Only the ``active`` assets (default: all) are stepped; the
+    others' rows keep their normals."""
     if not (z.flags.c_contiguous and z.dtype == np.float64):
         z = np.ascontiguousarray(z, dtype=np.float64)
     _log_paths(z, np.ascontiguousarray(drift, dtype=np.float64),
                np.ascontiguousarray(factor, dtype=np.float64),
-               np.ascontiguousarray(log_spots, dtype=np.float64))
+               np.ascontiguousarray(log_spots, dtype=np.float64), _active(active, z.shape[1]))
     return z
+
+
+def _active(active: np.ndarray | None, n_a: int) -> np.ndarray:
+    return np.ones(n_a, dtype=np.bool_) if active is None else \
+        np.ascontiguousarray(active, dtype=np.bool_)
 
 
 @njit(cache=True, nogil=True)
@@ -317,12 +327,12 @@ def extreme_given_last(others: np.ndarray, mu: np.ndarray, var: float, k: float,
 
 
 @njit(cache=True, nogil=True)
-def _local_vol_paths(z, corr, log_fwd, lv_sd, lv_y0, lv_inv_dy, gbm_sd, is_lv, log_x0):
+def _local_vol_paths(z, corr, log_fwd, lv_sd, lv_y0, lv_inv_dy, gbm_sd, is_lv, log_x0, active):
     """Log-Euler steps of each asset's log-level x (the escrowed level when it pays cash
     dividends), in place in ``z``: ``x_{k+1} = x_k + log F_{k+1} - log F_k - s^2/2 + s e``
     with ``e`` the correlated normal and ``s`` the step's standard deviation: the local vol at
     ``(t_k, y = x_k - log F_k)`` times the root of the step (tabulated as such), or the GBM
-    step's."""
+    step's. Assets not ``active`` are skipped (their rows keep their normals)."""
     n, n_a, n_s = z.shape
     last = lv_sd.shape[2] - 1
     e = np.empty(n_a)
@@ -333,10 +343,13 @@ def _local_vol_paths(z, corr, log_fwd, lv_sd, lv_y0, lv_inv_dy, gbm_sd, is_lv, l
         for k in range(n_s):
             for a in range(n_a):
                 acc = 0.0
-                for b in range(a + 1):
-                    acc += corr[a, b] * z[p, b, k]
+                if active[a]:
+                    for b in range(a + 1):
+                        acc += corr[a, b] * z[p, b, k]
                 e[a] = acc
             for a in range(n_a):
+                if not active[a]:
+                    continue
                 if is_lv[a]:
                     u = (x[a] - log_fwd[a, k] - lv_y0[a]) * lv_inv_dy[a]
                     if u <= 0.0:
@@ -355,7 +368,8 @@ def _local_vol_paths(z, corr, log_fwd, lv_sd, lv_y0, lv_inv_dy, gbm_sd, is_lv, l
 
 def local_vol_paths(z: np.ndarray, corr: np.ndarray, log_fwd: np.ndarray, lv_sd: np.ndarray,
                     lv_y0: np.ndarray, lv_dy: np.ndarray, gbm_sd: np.ndarray,
-                    is_lv: np.ndarray, log_x0: np.ndarray) -> np.ndarray:
+                    is_lv: np.ndarray, log_x0: np.ndarray, active: np.ndarray | None = None
+                    ) -> np.ndarray:
     """Log-levels on the fine grid under local volatility (see :func:`_local_vol_paths`), in
     place in ``z`` (paths, assets, steps).
 
@@ -363,7 +377,8 @@ def local_vol_paths(z: np.ndarray, corr: np.ndarray, log_fwd: np.ndarray, lv_sd:
     steps + 1) the log forward of the simulated level at the grid's start and every step;
     ``lv_sd`` (assets, steps, y points) each local-vol asset's step standard deviation (local
     vol times the root of the step) on a uniform grid of forward log-moneyness from ``lv_y0``
-    by ``lv_dy`` (linear interpolation, flat beyond); ``gbm_sd`` (assets, steps) the others'."""
+    by ``lv_dy`` (linear interpolation, flat beyond); ``gbm_sd`` (assets, steps) the others';
+    ``active`` (default: all) the assets to step."""
     if not (z.flags.c_contiguous and z.dtype == np.float64):
         z = np.ascontiguousarray(z, dtype=np.float64)
     _local_vol_paths(z, np.ascontiguousarray(corr, dtype=np.float64),
@@ -373,5 +388,6 @@ def local_vol_paths(z: np.ndarray, corr: np.ndarray, log_fwd: np.ndarray, lv_sd:
                      np.ascontiguousarray(1.0 / np.asarray(lv_dy, dtype=np.float64)),
                      np.ascontiguousarray(gbm_sd, dtype=np.float64),
                      np.ascontiguousarray(is_lv, dtype=np.bool_),
-                     np.ascontiguousarray(log_x0, dtype=np.float64))
+                     np.ascontiguousarray(log_x0, dtype=np.float64),
+                     _active(active, z.shape[1]))
     return z

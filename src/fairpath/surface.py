@@ -229,21 +229,32 @@ class VolSurface:
         half = max(half, 1.05 * max(max(abs(r.lo), abs(r.hi)) for r in rows))
         y = np.linspace(-half, half, Y_POINTS)
         dy = y[1] - y[0]
-        table = np.empty((len(t_grid), Y_POINTS))
-        floored = 0
-        for k, t in enumerate(t_grid):
-            t = max(float(t), 1e-6)
-            w = self.total_variance(np.full(Y_POINTS, t), y, rows)
-            dwdt = self.variance_slope(t, y, rows)
-            wy = np.gradient(w, dy)
-            wyy = np.gradient(wy, dy)
-            den = (1.0 - y / w * wy + 0.25 * (-0.25 - 1.0 / w + y * y / (w * w)) * wy * wy
-                   + 0.5 * wyy)
-            with np.errstate(divide="ignore", invalid="ignore"):
-                lv = np.where((den > 0) & (dwdt > 0), dwdt / den, -1.0)
-            bad = ~(lv > LOCAL_VAR_FLOOR)
-            floored += int(bad.sum())
-            table[k] = np.where(bad, LOCAL_VAR_FLOOR, lv)
+        # every step start at once: the tenors' implied variances on the y grid, then the
+        # piecewise-linear maturity rule of total_variance and variance_slope per start
+        per = self._implied_variances(y, rows)
+        ts = np.asarray(self.times)
+        t = np.maximum(t_grid, 1e-6)[:, None]
+        j = np.clip(np.searchsorted(ts, t[:, 0], side="right") - 1, 0, max(len(ts) - 2, 0))
+        if len(ts) > 1:
+            t0, t1 = ts[j][:, None], ts[j + 1][:, None]
+            wa, wb = per[j] * t0, per[j + 1] * t1
+            w = wa + (wb - wa) * (t - t0) / (t1 - t0)
+            dwdt = (per[j + 1] * t1 - per[j] * t0) / (t1 - t0)
+        else:
+            w = dwdt = np.zeros((len(t), Y_POINTS))
+        before, after = t[:, 0] <= ts[0], t[:, 0] >= ts[-1]
+        w = np.where(before[:, None], per[0] * t, np.where(after[:, None], per[-1] * t, w))
+        dwdt = np.where((t[:, 0] < ts[0])[:, None], per[0],
+                        np.where(after[:, None], per[-1], dwdt))
+        wy = np.gradient(w, dy, axis=1)
+        wyy = np.gradient(wy, dy, axis=1)
+        den = (1.0 - y / w * wy + 0.25 * (-0.25 - 1.0 / w + y * y / (w * w)) * wy * wy
+               + 0.5 * wyy)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            lv = np.where((den > 0) & (dwdt > 0), dwdt / den, -1.0)
+        bad = ~(lv > LOCAL_VAR_FLOOR)
+        floored = int(bad.sum())
+        table = np.where(bad, LOCAL_VAR_FLOOR, lv)
         return LocalVolTable(t_grid, float(y[0]), float(dy), table, floored, table.size)
 
 

@@ -145,6 +145,42 @@ class Stepper:
         model declares :attr:`Capability.SCORE`; None otherwise."""
         return None
 
+    def asset_inputs(self, a: int) -> tuple | None:
+        """Everything the path of asset ``a`` depends on besides the normals (the grid, its
+        step parameters, its row of the correlation factor, its start), where the stepper can
+        tell; None (the default) when it cannot."""
+        return None
+
+    def unchanged(self, base: Stepper) -> np.ndarray | None:
+        """Per asset: is its path, from the same normals, exactly the one ``base`` simulates
+        (every :meth:`asset_inputs` equal)? None when the two cannot be compared. A bump of
+        one asset's vol or dividends then simulates that asset alone."""
+        names = getattr(self, "names", None)
+        if type(base) is not type(self) or names is None or names != base.names:
+            return None
+        out = np.zeros(len(names), dtype=bool)
+        for a in range(len(names)):
+            mine, theirs = self.asset_inputs(a), base.asset_inputs(a)
+            if mine is None or theirs is None:
+                return None
+            out[a] = len(mine) == len(theirs) and all(
+                _same(x, y) for x, y in zip(mine, theirs, strict=True))
+        return out
+
+    def simulate_changed(self, z: np.ndarray, base: PathState, keep: np.ndarray) -> PathState:
+        """Paths from the normals ``z`` where the assets in ``keep`` have the paths of
+        ``base`` (:meth:`unchanged`): those are copied, the others simulated. The default
+        simulates every asset."""
+        return self.simulate(z)
+
+
+def _same(x, y) -> bool:
+    if x is None or y is None:
+        return x is None and y is None
+    if isinstance(x, np.ndarray) or isinstance(y, np.ndarray):
+        return np.array_equal(np.asarray(x), np.asarray(y))
+    return x == y
+
 
 @dataclass(frozen=True, slots=True)
 class ModelSet:
@@ -286,14 +322,22 @@ def escrow_table(market: Market, names: tuple[str, ...], times: np.ndarray
                      for n in names])
 
 
-def add_escrow(x: np.ndarray, escrow: np.ndarray | None) -> np.ndarray:
+def add_escrow(x: np.ndarray, escrow: np.ndarray | None,
+               assets: np.ndarray | None = None) -> np.ndarray:
     """The level is the escrowed (diffusing) part plus the dividends to come: in place on the
-    log-levels ``x`` (paths, assets, grid dates)."""
+    log-levels ``x`` (paths, assets, grid dates), of the ``assets`` marked (default: all)."""
     if escrow is not None:
         for a in range(x.shape[1]):
-            if np.any(escrow[a]):
+            if (assets is None or assets[a]) and np.any(escrow[a]):
                 x[:, a, :] = np.log(np.exp(x[:, a, :]) + escrow[a][None, :])
     return x
+
+
+def copy_kept(x: np.ndarray, base: PathState, keep: np.ndarray) -> PathState:
+    """The freshly simulated log-levels ``x`` with the ``keep`` assets' rows taken from
+    ``base`` (:meth:`Stepper.simulate_changed`)."""
+    x[:, keep, :] = base.log_levels[:, keep, :]
+    return PathState(x)
 
 
 class ScalesWithSpot:

@@ -31,6 +31,7 @@ from fairpath.models.base import (
     ScalesWithSpot,
     Stepper,
     add_escrow,
+    copy_kept,
     psd_cholesky,
 )
 from fairpath.registry import MODELS, Capability
@@ -115,6 +116,14 @@ class ExactSteps(ScalesWithSpot, Stepper):
         arithmetic is the same whatever the number of paths in the batch."""
         x = log_paths(z, self.drift, self.factor, self.log_start)
         return PathState(add_escrow(x, self.escrow))
+
+    def asset_inputs(self, a: int) -> tuple:
+        return (self.times, self.drift[a], self.factor[:, a, :], self.log_start[a],
+                None if self.escrow is None else self.escrow[a])
+
+    def simulate_changed(self, z: np.ndarray, base: PathState, keep: np.ndarray) -> PathState:
+        x = log_paths(z, self.drift, self.factor, self.log_start, ~keep)
+        return copy_kept(add_escrow(x, self.escrow, ~keep), base, keep)
 
     def first_step(self):
         L = self.factor[0]

@@ -25,6 +25,7 @@ from fairpath.models.base import (
     ScalesWithSpot,
     Stepper,
     add_escrow,
+    copy_kept,
     psd_cholesky,
 )
 from fairpath.models.black import check_lognormal_tail, step_covariance
@@ -121,11 +122,22 @@ class LocalSteps(ScalesWithSpot, Stepper):
                        "surface is close to an arbitrage there)",) if self.floored else ())
 
     def simulate(self, z: np.ndarray) -> PathState:
+        return PathState(self._levels(z, None))
+
+    def _levels(self, z: np.ndarray, active: np.ndarray | None) -> np.ndarray:
         x = local_vol_paths(z, self.corr, self.log_fwd, self.step_sd, self.y0, self.dy,
-                            self.gbm_sd, self.is_lv, self.log_start)
+                            self.gbm_sd, self.is_lv, self.log_start, active)
         if len(self.grid_cols) != x.shape[2]:  # finer than the grid: keep its dates only
             x = np.ascontiguousarray(x[:, :, self.grid_cols])
-        return PathState(add_escrow(x, self.escrow))
+        return add_escrow(x, self.escrow, active)
+
+    def asset_inputs(self, a: int) -> tuple:
+        return (self.sim_times, self.grid_cols, self.log_fwd[a], self.step_sd[a], self.y0[a],
+                self.dy[a], self.gbm_sd[a], self.is_lv[a], self.corr[a], self.log_start[a],
+                None if self.escrow is None else self.escrow[a])
+
+    def simulate_changed(self, z: np.ndarray, base: PathState, keep: np.ndarray) -> PathState:
+        return copy_kept(self._levels(z, ~keep), base, keep)
 
 
 _TABLES: dict = {}
