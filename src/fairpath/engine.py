@@ -261,6 +261,8 @@ class Simulation:
         for i, m in enumerate(scenarios):
             self.setups.append(self._setup(m, i == 0, source))
         base = self.setups[0]
+        if base.stepper is not None and any(s.spots_only for s in self.setups[1:]):
+            base.stepper.for_respot = True
         self.grid_times = base.times
         self.stepper = base.stepper
         #: the times the sampler draws for (finer than the grid under local volatility)
@@ -342,6 +344,12 @@ class Simulation:
         cols: list[list[np.ndarray]] = [[] for _ in self.products]
         diags: list[dict] = [{} for _ in self.products]
         base_state = None
+
+        def own(stepper) -> np.ndarray:
+            """The normals for one scenario: a copy when the stepper overwrites them and
+            another scenario still needs them."""
+            return z.copy() if many and not stepper.keeps_normals else z
+
         for k, setup in enumerate(self.setups):  # one scenario's paths in memory at a time
             state = None
             if setup.spots_only and base_state is not None:
@@ -349,9 +357,9 @@ class Simulation:
             elif setup.keep is not None and base_state is not None:
                 # only some assets' inputs moved: the others' paths are the base's
                 state = base_state if setup.keep.all() else \
-                    setup.stepper.simulate_changed(z.copy(), base_state, setup.keep)
+                    setup.stepper.simulate_changed(own(setup.stepper), base_state, setup.keep)
             if state is None:
-                state = setup.stepper.simulate(z.copy() if many else z)
+                state = setup.stepper.simulate(own(setup.stepper))
             if k == 0:
                 base_state = state
             for j, (prod, ps) in enumerate(zip(self.products,

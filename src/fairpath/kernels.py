@@ -326,62 +326,78 @@ def extreme_given_last(others: np.ndarray, mu: np.ndarray, var: float, k: float,
     return out
 
 
+#: paths stepped together by the local-vol kernel (a tile's normals stay in the first cache)
+LV_TILE = 64
+
+
 @njit(cache=True, nogil=True)
-def _local_vol_paths(z, corr, log_fwd, lv_sd, lv_y0, lv_inv_dy, gbm_sd, is_lv, log_x0, active):
+def _local_vol_paths(z, out, col_of, corr, log_fwd, lv_sd, lv_y0, lv_inv_dy, gbm_sd, is_lv,
+                     log_x0, active):
     """Log-Euler steps of each asset's log-level x (the escrowed level when it pays cash
-    dividends), in place in ``z``: ``x_{k+1} = x_k + log F_{k+1} - log F_k - s^2/2 + s e``
-    with ``e`` the correlated normal and ``s`` the step's standard deviation: the local vol at
+    dividends): ``x_{k+1} = x_k + log F_{k+1} - log F_k - s^2/2 + s e`` with ``e`` the
+    correlated normal and ``s`` the step's standard deviation: the local vol at
     ``(t_k, y = x_k - log F_k)`` times the root of the step (tabulated as such), or the GBM
-    step's. Assets not ``active`` are skipped (their rows keep their normals)."""
+    step's. The level after step ``k`` goes to ``out[p, a, col_of[k]]`` (none when negative);
+    ``z`` is only read. Assets not ``active`` are skipped (their rows of ``out`` untouched)."""
     n, n_a, n_s = z.shape
     last = lv_sd.shape[2] - 1
-    e = np.empty(n_a)
-    x = np.empty(n_a)
+    x = np.empty((n, n_a))
     for p in range(n):
         for a in range(n_a):
-            x[a] = log_x0[a]
+            x[p, a] = log_x0[a]
+    # step by step across a tile of paths: a step's row of the table stays in cache for all
+    # of them, and so do the tile's normals of the next few steps
+    for p0 in range(0, n, LV_TILE):
+        p1 = min(p0 + LV_TILE, n)
         for k in range(n_s):
-            for a in range(n_a):
-                acc = 0.0
-                if active[a]:
-                    for b in range(a + 1):
-                        acc += corr[a, b] * z[p, b, k]
-                e[a] = acc
+            c = col_of[k]
             for a in range(n_a):
                 if not active[a]:
                     continue
-                if is_lv[a]:
-                    u = (x[a] - log_fwd[a, k] - lv_y0[a]) * lv_inv_dy[a]
-                    if u <= 0.0:
-                        sd = lv_sd[a, k, 0]
-                    elif u >= last:
-                        sd = lv_sd[a, k, last]
+                step = log_fwd[a, k + 1] - log_fwd[a, k]
+                for p in range(p0, p1):
+                    e = 0.0
+                    for b in range(a + 1):
+                        e += corr[a, b] * z[p, b, k]
+                    if is_lv[a]:
+                        u = (x[p, a] - log_fwd[a, k] - lv_y0[a]) * lv_inv_dy[a]
+                        if u <= 0.0:
+                            sd = lv_sd[a, k, 0]
+                        elif u >= last:
+                            sd = lv_sd[a, k, last]
+                        else:
+                            i = int(u)
+                            f = u - i
+                            sd = lv_sd[a, k, i] + (lv_sd[a, k, i + 1] - lv_sd[a, k, i]) * f
                     else:
-                        i = int(u)
-                        f = u - i
-                        sd = lv_sd[a, k, i] + (lv_sd[a, k, i + 1] - lv_sd[a, k, i]) * f
-                else:
-                    sd = gbm_sd[a, k]
-                x[a] += log_fwd[a, k + 1] - log_fwd[a, k] - 0.5 * sd * sd + sd * e[a]
-                z[p, a, k] = x[a]
+                        sd = gbm_sd[a, k]
+                    x[p, a] += step - 0.5 * sd * sd + sd * e
+                    if c >= 0:
+                        out[p, a, c] = x[p, a]
 
 
 def local_vol_paths(z: np.ndarray, corr: np.ndarray, log_fwd: np.ndarray, lv_sd: np.ndarray,
                     lv_y0: np.ndarray, lv_dy: np.ndarray, gbm_sd: np.ndarray,
-                    is_lv: np.ndarray, log_x0: np.ndarray, active: np.ndarray | None = None
-                    ) -> np.ndarray:
-    """Log-levels on the fine grid under local volatility (see :func:`_local_vol_paths`), in
-    place in ``z`` (paths, assets, steps).
+                    is_lv: np.ndarray, log_x0: np.ndarray, active: np.ndarray | None = None,
+                    cols: np.ndarray | None = None) -> np.ndarray:
+    """Log-levels under local volatility (see :func:`_local_vol_paths`) from the normals ``z``
+    (paths, assets, fine steps), which are left as they are, in a new array (paths, assets,
+    kept steps): after the fine steps ``cols`` (default: every step).
 
     ``corr`` is the lower-triangular factor of the assets' correlation; ``log_fwd`` (assets,
     steps + 1) the log forward of the simulated level at the grid's start and every step;
     ``lv_sd`` (assets, steps, y points) each local-vol asset's step standard deviation (local
     vol times the root of the step) on a uniform grid of forward log-moneyness from ``lv_y0``
     by ``lv_dy`` (linear interpolation, flat beyond); ``gbm_sd`` (assets, steps) the others';
-    ``active`` (default: all) the assets to step."""
-    if not (z.flags.c_contiguous and z.dtype == np.float64):
-        z = np.ascontiguousarray(z, dtype=np.float64)
-    _local_vol_paths(z, np.ascontiguousarray(corr, dtype=np.float64),
+    ``active`` (default: all) the assets to step (the rows of the others are left empty)."""
+    z = np.ascontiguousarray(z, dtype=np.float64)
+    n, n_a, n_s = z.shape
+    col_of = np.full(n_s, -1, dtype=np.int64)
+    if cols is None:
+        cols = np.arange(n_s)
+    col_of[np.asarray(cols, dtype=np.int64)] = np.arange(len(cols))
+    out = np.empty((n, n_a, len(cols)))
+    _local_vol_paths(z, out, col_of, np.ascontiguousarray(corr, dtype=np.float64),
                      np.ascontiguousarray(log_fwd, dtype=np.float64),
                      np.ascontiguousarray(lv_sd, dtype=np.float64),
                      np.ascontiguousarray(lv_y0, dtype=np.float64),
@@ -389,5 +405,5 @@ def local_vol_paths(z: np.ndarray, corr: np.ndarray, log_fwd: np.ndarray, lv_sd:
                      np.ascontiguousarray(gbm_sd, dtype=np.float64),
                      np.ascontiguousarray(is_lv, dtype=np.bool_),
                      np.ascontiguousarray(log_x0, dtype=np.float64),
-                     _active(active, z.shape[1]))
-    return z
+                     _active(active, n_a))
+    return out

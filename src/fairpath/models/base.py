@@ -130,8 +130,16 @@ class Stepper:
     variance: np.ndarray
     notes: tuple[str, ...] = ()
 
+    #: does :meth:`simulate` leave ``z`` as it is? (Else the engine hands each scenario a
+    #: copy of the normals.)
+    keeps_normals: bool = False
+    #: set by the engine when scenarios will :meth:`respot` this stepper's paths: keep what
+    #: that needs beside the levels (the diffusing part of a level with cash dividends)
+    for_respot: bool = False
+
     def simulate(self, z: np.ndarray) -> PathState:
-        """Paths from the normals ``z`` (paths, factors, sim steps), which it may overwrite."""
+        """Paths from the normals ``z`` (paths, factors, sim steps), which it may overwrite
+        unless it declares :attr:`keeps_normals`."""
         raise NotImplementedError
 
     def respot(self, state: PathState, market: Market) -> PathState | None:
@@ -323,13 +331,21 @@ def escrow_table(market: Market, names: tuple[str, ...], times: np.ndarray
 
 
 def add_escrow(x: np.ndarray, escrow: np.ndarray | None,
-               assets: np.ndarray | None = None) -> np.ndarray:
+               assets: np.ndarray | None = None, keep: dict | None = None) -> np.ndarray:
     """The level is the escrowed (diffusing) part plus the dividends to come: in place on the
-    log-levels ``x`` (paths, assets, grid dates), of the ``assets`` marked (default: all)."""
+    log-levels ``x`` (paths, assets, grid dates), of the ``assets`` marked (default: all).
+    With ``keep`` (a dict), the diffusing parts are kept in it under ``"diffusing"`` (same
+    shape, rows of the assets with dividends), for :meth:`ScalesWithSpot.respot`."""
     if escrow is not None:
         for a in range(x.shape[1]):
             if (assets is None or assets[a]) and np.any(escrow[a]):
-                x[:, a, :] = np.log(np.exp(x[:, a, :]) + escrow[a][None, :])
+                part = np.exp(x[:, a, :])
+                if keep is not None:
+                    if "diffusing" not in keep:
+                        keep["diffusing"] = np.empty_like(x)
+                    keep["diffusing"][:, a, :] = part
+                part += escrow[a][None, :]
+                np.log(part, out=x[:, a, :])
     return x
 
 
@@ -361,17 +377,27 @@ class ScalesWithSpot:
 
     def respot(self, state: PathState, market: Market) -> PathState:
         new = escrowed_log_spots(market, self.names)
-        x = state.log_levels.copy()
+        base = state.log_levels
+        diffusing = state.extra.get("diffusing")
+        x = np.empty_like(base)  # each row written once: copied, shifted or rescaled
         for a in range(x.shape[1]):
             shift = new[a] - self.log_start[a]
             if shift == 0:
-                continue
-            if self.escrow is not None and np.any(self.escrow[a]):
+                x[:, a, :] = base[:, a, :]
+            elif self.escrow is not None and np.any(self.escrow[a]):
+                # the diffusing part scales; the dividends to come do not
                 d = self.escrow[a][None, :]
-                x[:, a, :] = np.log((np.exp(x[:, a, :]) - d) * np.exp(shift) + d)
+                if diffusing is not None:
+                    level = diffusing[:, a, :] * np.exp(shift)
+                else:
+                    level = np.exp(base[:, a, :])
+                    level -= d
+                    level *= np.exp(shift)
+                level += d
+                np.log(level, out=x[:, a, :])
             else:
-                x[:, a, :] += shift
-        return PathState(x, dict(state.extra))
+                np.add(base[:, a, :], shift, out=x[:, a, :])
+        return PathState(x)
 
 
 def escrowed_log_spots(market: Market, names: tuple[str, ...]) -> np.ndarray:

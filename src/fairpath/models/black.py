@@ -115,7 +115,9 @@ class ExactSteps(ScalesWithSpot, Stepper):
         accumulated path by path (:func:`fairpath.kernels.log_paths`), so every path's
         arithmetic is the same whatever the number of paths in the batch."""
         x = log_paths(z, self.drift, self.factor, self.log_start)
-        return PathState(add_escrow(x, self.escrow))
+        extra: dict = {}
+        return PathState(add_escrow(x, self.escrow, keep=extra if self.for_respot else None),
+                         extra)
 
     def asset_inputs(self, a: int) -> tuple:
         return (self.times, self.drift[a], self.factor[:, a, :], self.log_start[a],

@@ -121,15 +121,19 @@ class LocalSteps(ScalesWithSpot, Stepper):
                        "points of the table (where Dupire's formula is not positive: the "
                        "surface is close to an arbitrage there)",) if self.floored else ())
 
-    def simulate(self, z: np.ndarray) -> PathState:
-        return PathState(self._levels(z, None))
+    #: the normals are only read (the levels go to a new array): no copy per scenario
+    keeps_normals = True
 
-    def _levels(self, z: np.ndarray, active: np.ndarray | None) -> np.ndarray:
+    def simulate(self, z: np.ndarray) -> PathState:
+        extra: dict = {}
+        return PathState(self._levels(z, None, extra if self.for_respot else None), extra)
+
+    def _levels(self, z: np.ndarray, active: np.ndarray | None, keep: dict | None = None
+                ) -> np.ndarray:
+        # finer than the grid (steps_per_day): only the steps ending on its dates are kept
         x = local_vol_paths(z, self.corr, self.log_fwd, self.step_sd, self.y0, self.dy,
-                            self.gbm_sd, self.is_lv, self.log_start, active)
-        if len(self.grid_cols) != x.shape[2]:  # finer than the grid: keep its dates only
-            x = np.ascontiguousarray(x[:, :, self.grid_cols])
-        return add_escrow(x, self.escrow, active)
+                            self.gbm_sd, self.is_lv, self.log_start, active, self.grid_cols)
+        return add_escrow(x, self.escrow, active, keep)
 
     def asset_inputs(self, a: int) -> tuple:
         return (self.sim_times, self.grid_cols, self.log_fwd[a], self.step_sd[a], self.y0[a],
