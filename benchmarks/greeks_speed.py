@@ -26,7 +26,9 @@ from pathlib import Path
 import fairpath as fp
 
 ROOT = Path(__file__).resolve().parents[1]
-sys.path.insert(0, str(ROOT / "benchmarks"))  # importing fairpath drops the script's folder
+# numba, importing fairpath, looks for the code-coverage package and finds coverage.py here,
+# which takes this folder off the path: put it back for the yardstick
+sys.path.insert(0, str(ROOT / "benchmarks"))
 from greeks_threads import yardstick  # noqa: E402
 
 TARGET = 6.0

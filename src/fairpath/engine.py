@@ -23,10 +23,18 @@ Standard errors:
 
 Control variates: the coefficient ``b`` is the least-squares slope of the payoff on the controls
 from the same run (pooled over all samples); the controlled estimate is
-``mean(Y) - b . (mean(X) - E[X])``. The variance reduction factor is the ratio of the uncontrolled
-to the controlled variance; a control that does not reduce the variance is switched off and the
-result says so. A control is used only where every model of the product's assets declares the
-capabilities its known mean rests on (``ControlVariate.requires``).
+``mean(Y) - b . (mean(X) - E[X])``. Every usable control is kept (on every path least squares
+never leaves more variance with more controls); the choice is never made on the spread of the
+Sobol scramblings, since picking the smallest of several noisy spreads reports too narrow an
+interval (measured by ``benchmarks/coverage.py``). Under Sobol the controls are switched off
+when they widen the scramblings' spread beyond the 99% point of the F law, and the result says
+so. The variance reduction factor is the ratio of the uncontrolled to the controlled variance.
+A control is used only where every model of the product's assets declares the capabilities its
+known mean rests on (``ControlVariate.requires``).
+
+When every Sobol scrambling gives the same estimate (a payoff taking few values), their zero
+spread is no error bar: the pseudo-random one over every path is reported, with a note; when
+they take only a few distinct values, the result says its interval rests on weak ground.
 
 Two phases: a product that needs pilot paths (``Product.pilot_paths() > 0``, e.g. to fit an
 exercise policy) is handed them from a random stream of their own before pricing, returns a
@@ -64,6 +72,9 @@ from fairpath.sampling import (
     make_sampler,
 )
 
+#: A Sobol interval rests on weak ground (and says so) when the R scramblings' estimates take
+#: at most ``R // FEW_DISTINCT`` distinct values
+FEW_DISTINCT = 4
 #: Bytes of simulated state per chunk (normals, log levels); keeps memory flat in the path count.
 CHUNK_BYTES = 32 * 1024 * 1024
 #: Paths simulated together at most (cache-friendly batches), unless chunk_paths says otherwise
@@ -580,29 +591,58 @@ def combine(moments: dict[Block, Moments], blocks: list[Block], controls: list[C
             est = groups[:, 0] - (groups[:, idx] - mu[subset]) @ coef if subset else groups[:, 0]
             return float(est.mean()), float(np.var(est, ddof=1)) / len(est)
         if not subset:
-            return float(pooled.mean[0]), float(cov[0, 0]) / pooled.n
-        price = float(pooled.mean[0] - coef @ (pooled.mean[idx] - mu[subset]))
-        return price, max(float(cov[0, 0] - cov[idx, 0] @ coef), 0.0) / pooled.n
+            return float(pooled.mean[0]), pooled_variance(subset)
+        return float(pooled.mean[0] - coef @ (pooled.mean[idx] - mu[subset])), \
+            pooled_variance(subset)
 
-    candidates: list[list[int]] = [[]]
-    if force is not None:
-        candidates = [[i for i in usable if controls[i].name in force]]
-    elif usable:
-        candidates.append(usable)
-        if len(usable) > 1:
-            candidates.extend([i] for i in usable)
-    results = [estimate(c) for c in candidates]
-    best = min(range(len(candidates)), key=lambda k: (results[k][1], len(candidates[k])))
-    price, var = results[best]
-    var_raw = estimate([])[1]
-    chosen = candidates[best]
+    def pooled_variance(subset: list[int]) -> float:
+        """The price's variance as if the paths were independent (pseudo-random)."""
+        idx = np.array(subset, dtype=int) + 1
+        if not subset:
+            return float(cov[0, 0]) / pooled.n
+        coef = np.linalg.lstsq(cov[np.ix_(idx, idx)], cov[idx, 0], rcond=None)[0]
+        return max(float(cov[0, 0] - cov[idx, 0] @ coef), 0.0) / pooled.n
+
+    # Which controls: chosen on the per-path residual variance (every path counts, so the
+    # choice is precise), never on the spread of a few scramblings: picking the smallest of
+    # several noisy spreads would pick one that happens to be small and report too narrow an
+    # interval. Least squares on every path never leaves more residual variance with more
+    # controls, so that choice is all the usable ones. Under randomized QMC a control can
+    # still widen the scramblings' spread (the payoff may be integrated better than the
+    # control); it is then switched off, but only when the spread is wider beyond what
+    # chance allows (the 99% point of the F law of two spreads), not on noise.
+    raw = estimate([])
+    chosen = list(usable) if force is None else [i for i in usable if controls[i].name in force]
+    price, var = estimate(chosen) if chosen else raw
+    var_raw = raw[1]
+    if chosen and force is None and groups is not None and len(groups) > 2:
+        limit = float(stats.f.ppf(0.99, len(groups) - 1, len(groups) - 1))
+        if var > limit * var_raw:
+            notes.append("control variates switched off: they widened the spread of the "
+                         "scramblings")
+            chosen, (price, var) = [], raw
     vrf = None
     if chosen:
         vrf = var_raw / var if var > 0 else None
         if var == 0:
             notes.append("the control variate explains the payoff exactly (zero variance)")
-    elif usable and force is None:
-        notes.append("control variates switched off: none reduced the variance")
+    if groups is not None and cov[0, 0] > 0:
+        # A payoff taking few values (a digital, few paying paths) can give scramblings whose
+        # estimates take only a handful of values. All equal: their spread (zero) is no measure
+        # of the error, and the error bar is the pseudo-random one over every path instead
+        # (wider, honest). A few values: the interval stands but rests on weak ground.
+        distinct = len(np.unique(groups[:, 0]))
+        if distinct == 1:
+            mc = pooled_variance(chosen)
+            if mc > var:
+                var, quant = mc, float(stats.norm.ppf(0.975))
+                notes.append(f"the {len(groups)} Sobol scramblings gave the same estimate, so "
+                             "their spread is no measure of the error: the error bar is the "
+                             "pseudo-random one over every path (conservative)")
+        elif distinct <= len(groups) // FEW_DISTINCT:
+            notes.append(f"the {len(groups)} Sobol scramblings' estimates took only {distinct} "
+                         "distinct values (a payoff taking few values): the interval rests "
+                         "on weak ground; confirm with --sampler pseudo or more paths")
     se = math.sqrt(max(var, 0.0))
     return Estimate(price, se, (price - quant * se, price + quant * se), pooled.n,
                     tuple(controls[i].name for i in chosen), vrf, tuple(notes))
@@ -707,6 +747,33 @@ def fit_products(products: list[Product], market: Market, settings: Settings,
     return out
 
 
+#: Controls are switched off when more than this share of an asset's forward sits in moves
+#: rarer than one path in the run: their known means count a tail the paths do not draw
+UNSEEN_CONTROL = 0.01
+
+
+def unseen_tail_controls(sim: Simulation, controls: list[list[ControlVariate]], paths: int
+                         ) -> list[str]:
+    """Switch off (in place) the controls of a run whose assets' forwards lean on moves no path
+    draws. A control's known mean (a forward, a vanilla) counts that tail, its sample mean
+    cannot, and the correction would carry the gap into the price with an error bar that does
+    not show it. The note says why; empty when nothing was switched off."""
+    from fairpath.models.black import unseen_forward_share
+
+    if not any(controls):
+        return []
+    shares = {n: unseen_forward_share(float(np.sum(sim.stepper.variance[i])), paths)
+              for i, n in enumerate(sim.names)}
+    name, share = max(shares.items(), key=lambda kv: kv[1])
+    if share <= UNSEEN_CONTROL:
+        return []
+    for c in controls:
+        c.clear()
+    return [f"control variates switched off: {share:.1%} of {name}'s forward sits in moves "
+            f"rarer than one path in {paths:,}, which a control's known mean counts and no "
+            "path draws (the error bar would not show the gap)"]
+
+
 def run(products: list[Product], scenarios: list[Market], settings: Settings, *,
         source: str | None = None, extras: Extras | None = None,
         control_set: tuple[str, ...] | None = None, target_stderr: float | None = None,
@@ -748,6 +815,9 @@ def run(products: list[Product], scenarios: list[Market], settings: Settings, *,
     sim.threads = None if settings.threads is None else engine_threads(settings.threads)
     if sim.stepper is not None:
         models.check_run(sim.stepper.variance, paths)
+        tail_notes = unseen_tail_controls(sim, controls, paths)
+        for c in control_notes:
+            c.extend(tail_notes)
     dim = sim.factors * sim.steps
     if smp.name == "sobol" and dim > SOBOL_MAX_DIM:
         msg = (f"the Sobol dimension {dim} ({sim.steps} dates x {sim.factors} factors) exceeds "

@@ -177,9 +177,13 @@ def price_run(products: list[Product], market: Market, settings: Settings, *,
             these.append(f"only {paying:.2%} of the paths pay: a Sobol error bar resting on so "
                          "few paths per scrambling can be too narrow; confirm with "
                          "--sampler pseudo or more paths")
-        if est.variance_reduction is not None:
+        if est.variance_reduction is not None and est.variance_reduction >= 1:
             these.append(f"control variate ({'; '.join(est.controls)}): variance reduced "
                          f"x{est.variance_reduction:.3g}")
+        elif est.variance_reduction is not None:
+            these.append(f"control variate ({'; '.join(est.controls)}): kept, though the "
+                         f"scramblings' spread came out x{1 / est.variance_reduction:.3g} "
+                         "wider with it (within chance; it reduces the variance path by path)")
         ctx = (p, market, dataclasses.replace(settings, paths=n, progress=False))
         out.append(PriceResult(est.price, est.stderr, est.ci95, n, currency, smp.name,
                                smp.seed, seconds, p.label(), smp.antithetic, smp.replicates,

@@ -132,13 +132,20 @@ class ExactSteps(ScalesWithSpot, Stepper):
         return self.drift[:, 0], L @ L.T
 
 
+def unseen_forward_share(w: float, paths: int) -> float:
+    """The share of a lognormal level's forward carried by moves rarer than one path in
+    ``paths`` (``Phi(sqrt(w) - z)``, ``w`` the total variance of its log, ``z`` the normal level
+    exceeded once in ``paths`` draws): a part of the mean no path of the run draws."""
+    z = float(stats.norm.isf(1.0 / max(paths, 2)))
+    return float(stats.norm.cdf(math.sqrt(max(w, 0.0)) - z))
+
+
 def check_lognormal_tail(market, name: str, variance: np.ndarray, paths: int) -> None:
     """Refuse a run whose asset has so much variance to the last date that the forward is
     carried by moves no path draws (share ``Phi(sqrt(w) - z)``, ``z`` the normal level exceeded
     once in ``paths`` draws)."""
-    z = float(stats.norm.isf(1.0 / max(paths, 2)))
     w = float(np.sum(variance))
-    share = float(stats.norm.cdf(math.sqrt(max(w, 0.0)) - z))
+    share = unseen_forward_share(w, paths)
     if share > MAX_UNSEEN_FORWARD:
         need = float(stats.norm.sf(math.sqrt(w) + stats.norm.isf(MAX_UNSEEN_FORWARD)))
         paths_needed = f"{1.0 / need:,.0f}" if need > 1e-15 else "more than 1e15"
