@@ -6,10 +6,10 @@ digital (``Product.reference``, checked against QuantLib elsewhere in the suite)
 r 5%, q 2%, spot 100, one year, 4,096 Sobol paths (16 scramblings of 256), seeds 1-60. The
 full study uses 200 seeds and asks 92-98%; with 60 seeds the binomial error of a coverage is 2.8
 points, so the bound here is looser (88%), and at most one run of the 60 may lie beyond 4
-standard errors (Student's t with 15 degrees of freedom puts 0.1% of runs there). Before the
-controls were chosen on every path instead of on the scramblings' spread, the digital covered
-90.0% over 200 seeds with 3.5% of runs beyond 4 standard errors, two of them with a zero
-error bar.
+standard errors (Student's t with 15 degrees of freedom puts 0.1% of runs there). While the
+controls were chosen as the smallest of several spreads of the 16 scramblings, the digital
+covered 90.0% over 200 seeds with 3.5% of runs beyond 4 standard errors, two of them with a
+zero error bar.
 """
 
 from __future__ import annotations
