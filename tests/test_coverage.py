@@ -68,3 +68,54 @@ def test_scramblings_that_agree_give_the_pseudo_random_error_bar_and_say_so():
     mc = df * np.sqrt(p / df * (1 - p / df) / 4096)  # pseudo-random stderr, before controls
     assert 0.5 * mc < r.stderr <= 1.0001 * mc
     assert r.ci95[0] <= p <= r.ci95[1]
+
+
+# -- discretisation under local volatility ------------------------------------------------------
+def _local_vol_market(surface_kind: str) -> fp.Market:
+    from fairpath.market import attach_surface
+    from fairpath.surface import VolSurface, ssvi_surface
+
+    r, q = 0.03, 0.01
+    curve = fp.DiscountCurve.flat(r)
+    tenors = (0.25, 0.5, 1.0, 2.0, 3.0)
+    strikes = (0.6, 0.7, 0.8, 0.9, 1.0, 1.1, 1.2, 1.35, 1.5)
+    surface = VolSurface(tenors, strikes, tuple((0.25,) * len(strikes) for _ in tenors)) \
+        if surface_kind == "flat" else ssvi_surface(tenors, strikes, 0.22, r, q)
+    base = fp.Asset("NORDA", 100.0, fp.VolCurve.flat(0.25), q)
+    return fp.Market(VAL, "EUR", curve, (attach_surface(base, surface, curve),))
+
+
+def test_richardson_on_a_flat_surface_finds_no_step_bias_and_prices_bsm():
+    """On a flat surface the local vol is constant and log-Euler steps are exact: the coarse
+    and fine paths of the Richardson run end at the same level, so the measured bias is zero
+    to rounding, and the price is Black-Scholes-Merton's (reference: closed_form.bsm_price)."""
+    from fairpath import closed_form as cf
+
+    m = _local_vol_market("flat")
+    put = fp.European(asset="NORDA", right="put", strike=90.0, expiry=EXPIRY)
+    r = fp.price(put, m, paths=8192, seed=4, richardson=True)
+    bias = r.to_dict()["discretisation_bias"]
+    assert abs(bias["estimate"]) < 1e-6 and bias["stderr"] < 1e-6
+    ref = float(cf.bsm_price(100.0, 90.0, m.time(EXPIRY), 0.03, 0.01, 0.25, "put"))
+    assert abs(r.price - ref) < 4 * r.stderr
+    assert any("Richardson" in n for n in r.notes)
+
+
+def test_local_vol_prices_say_their_error_bar_leaves_out_the_step_bias():
+    """A plain local-vol price says that its interval is sampling error alone; with
+    --richardson the skewed surface's 80 put is repriced within its error bar plus the local-vol
+    table's allowance of 0.3 vol points (reference: Black-Scholes-Merton at the surface's own
+    implied vol, as in fairpath validate)."""
+    from fairpath import closed_form as cf
+
+    m = _local_vol_market("skew")
+    put = fp.European(asset="NORDA", right="put", strike=80.0, expiry=EXPIRY)
+    plain = fp.price(put, m, paths=16384, seed=2)
+    assert any("sampling error alone" in n for n in plain.notes)
+    t = m.time(EXPIRY)
+    vol = float(m.assets[0].surface.implied(t, 0.8))
+    ref = float(cf.bsm_price(100.0, 80.0, t, 0.03, 0.01, vol, "put"))
+    vega = float(cf.bsm_greeks(100.0, 80.0, t, 0.03, 0.01, vol, "put")["vega"])
+    r = fp.price(put, m, paths=16384, seed=2, richardson=True)
+    assert abs(r.price - ref) < 4 * r.stderr + 0.003 * vega
+    assert r.to_dict()["discretisation_bias"]["plain_price"] == pytest.approx(plain.price)

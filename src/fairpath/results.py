@@ -65,6 +65,8 @@ class PriceResult:
                   "variance_reduction": self.variance_reduction, "notes": list(self.notes)})
         if self.diagnostics:
             d["diagnostics"] = self.diagnostics
+        if "discretisation_bias" in self.extras:
+            d["discretisation_bias"] = dict(self.extras["discretisation_bias"])
         return d
 
     @property

@@ -28,6 +28,7 @@ registers it), its stepper, and a line importing it in ``fairpath/models/__init_
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, field
 from typing import ClassVar
 
@@ -136,6 +137,9 @@ class Stepper:
     #: set by the engine when scenarios will :meth:`respot` this stepper's paths: keep what
     #: that needs beside the levels (the diffusing part of a level with cash dividends)
     for_respot: bool = False
+    #: are the steps an approximation whose error shrinks with the step (log-Euler)? The engine
+    #: can remove that error to first order on a finer grid (:func:`fairpath.engine.richardson`)
+    discretised: bool = False
 
     def simulate(self, z: np.ndarray) -> PathState:
         """Paths from the normals ``z`` (paths, factors, sim steps), which it may overwrite
@@ -180,6 +184,26 @@ class Stepper:
         ``base`` (:meth:`unchanged`): those are copied, the others simulated. The default
         simulates every asset."""
         return self.simulate(z)
+
+
+class Coarsened(Stepper):
+    """A stepper on a grid ``factor`` times coarser than the normals it is fed: each coarse
+    step's normal is the sum of its ``factor`` equal fine steps' normals over the root of
+    ``factor``, so the coarse and the fine paths follow one Brownian path (a coupling: their
+    difference is the discretisation error alone, with little noise)."""
+
+    keeps_normals = True
+
+    def __init__(self, inner: Stepper, fine_times: np.ndarray, factor: int):
+        self.inner, self.factor = inner, factor
+        self.times, self.sim_times = inner.times, np.asarray(fine_times, dtype=float)
+        self.factors, self.variance, self.notes = inner.factors, inner.variance, inner.notes
+
+    def simulate(self, z: np.ndarray) -> PathState:
+        n, f, s = z.shape
+        zc = z.reshape(n, f, s // self.factor, self.factor).sum(axis=3)
+        zc /= math.sqrt(self.factor)
+        return self.inner.simulate(zc)
 
 
 def _same(x, y) -> bool:

@@ -123,6 +123,8 @@ class LocalSteps(ScalesWithSpot, Stepper):
 
     #: the normals are only read (the levels go to a new array): no copy per scenario
     keeps_normals = True
+    #: log-Euler steps: a weak error of the order of the step, measured by the engine
+    discretised = True
 
     def simulate(self, z: np.ndarray) -> PathState:
         extra: dict = {}
