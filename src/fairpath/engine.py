@@ -714,11 +714,17 @@ class Run:
             w = np.zeros(width)
             for i, c in weights.items():
                 w[i] += c
+            var = max(float(w @ pooled.cov() @ w) / pooled.n, 0.0)
             if groups is not None:
                 est = groups @ w
-                return float(est.mean()), float(np.std(est, ddof=1) / math.sqrt(len(est)))
-            var = float(w @ pooled.cov() @ w) / pooled.n
-            return float(pooled.mean @ w), math.sqrt(max(var, 0.0))
+                se = float(np.std(est, ddof=1) / math.sqrt(len(est)))
+                # a bump that moves a handful of paths across a jump (a digital's vega): the
+                # scramblings can all count the same paths, and a zero spread is no error bar;
+                # the pseudo-random one over every path is (as for prices)
+                if len(np.unique(est)) == 1:
+                    se = max(se, math.sqrt(var))
+                return float(est.mean()), se
+            return float(pooled.mean @ w), math.sqrt(var)
 
         return combo
 
