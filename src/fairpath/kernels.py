@@ -97,11 +97,9 @@ def uniforms_to_normals(u: np.ndarray, clip: float) -> np.ndarray:
 
 @njit(cache=True, nogil=True)
 def _log_paths(z: np.ndarray, drift: np.ndarray, factor: np.ndarray,
-               log_spots: np.ndarray, active: np.ndarray) -> None:
+               log_spots: np.ndarray) -> None:
     n, n_a, n_s = z.shape
     if n_a == 1:  # one asset: a running sum per path
-        if not active[0]:
-            return
         for i in range(n):
             acc = log_spots[0]
             for k in range(n_s):
@@ -112,6 +110,22 @@ def _log_paths(z: np.ndarray, drift: np.ndarray, factor: np.ndarray,
         for k in range(n_s):
             # assets from the last down: asset a reads the normals of assets b <= a, which are
             # still untouched when it overwrites its own
+            for a in range(n_a - 1, -1, -1):
+                inc = drift[a, k]
+                for b in range(a + 1):
+                    inc += factor[k, a, b] * z[i, b, k]
+                prev = log_spots[a] if k == 0 else z[i, a, k - 1]
+                z[i, a, k] = prev + inc
+
+
+@njit(cache=True, nogil=True)
+def _log_paths_some(z: np.ndarray, drift: np.ndarray, factor: np.ndarray,
+                    log_spots: np.ndarray, active: np.ndarray) -> None:
+    """:func:`_log_paths` for the ``active`` assets only (the others' rows keep their normals);
+    a loop of its own, so that the full one carries no test per step."""
+    n, n_a, n_s = z.shape
+    for i in range(n):
+        for k in range(n_s):
             for a in range(n_a - 1, -1, -1):
                 if not active[a]:
                     continue
@@ -130,9 +144,13 @@ def log_paths(z: np.ndarray, drift: np.ndarray, factor: np.ndarray,
     others' rows keep their normals."""
     if not (z.flags.c_contiguous and z.dtype == np.float64):
         z = np.ascontiguousarray(z, dtype=np.float64)
-    _log_paths(z, np.ascontiguousarray(drift, dtype=np.float64),
-               np.ascontiguousarray(factor, dtype=np.float64),
-               np.ascontiguousarray(log_spots, dtype=np.float64), _active(active, z.shape[1]))
+    args = (z, np.ascontiguousarray(drift, dtype=np.float64),
+            np.ascontiguousarray(factor, dtype=np.float64),
+            np.ascontiguousarray(log_spots, dtype=np.float64))
+    if active is None or bool(np.all(active)):
+        _log_paths(*args)
+    elif np.any(active):
+        _log_paths_some(*args, _active(active, z.shape[1]))
     return z
 
 
