@@ -766,3 +766,22 @@ def test_floored_local_variance_is_counted_in_the_notes():
     clean = fp.price(european("call", 100.0, ONE_Y), flat_surface_market(0.25), paths=4096,
                      seed=41)
     assert not any("floored" in n for n in clean.notes)
+
+
+def test_a_smile_typed_in_percent_is_called_a_percentage_not_an_arbitrage(tmp_path, capsys):
+    # 25 for 0.25 used to be refused as a butterfly arbitrage (g = -1e4); like a flat vol of 28
+    # it is now named as a percentage, at the first such quote
+    market = write(tmp_path / "pct.toml", """valuation_date = 2026-12-01
+currency = "EUR"
+[discount]
+rate = 0.03
+[assets.NORDA]
+spot = 100.0
+[assets.NORDA.vol_surface]
+tenors = ["6M", "1Y"]
+strikes = [0.8, 1.0, 1.2]
+vols = [[0.28, 0.25, 0.23], [27, 24, 22.5]]
+""")
+    product = write(tmp_path / "call.toml", european_toml("call", 105.0, ONE_Y))
+    assert_bad_input(*run(["price", product, "--market", market, "--json"], capsys), market,
+                     "assets.NORDA.vol_surface.vols[1][0]", "a percentage? write 0.27")
