@@ -785,3 +785,27 @@ vols = [[0.28, 0.25, 0.23], [27, 24, 22.5]]
     product = write(tmp_path / "call.toml", european_toml("call", 105.0, ONE_Y))
     assert_bad_input(*run(["price", product, "--market", market, "--json"], capsys), market,
                      "assets.NORDA.vol_surface.vols[1][0]", "a percentage? write 0.27")
+
+
+@pytest.mark.parametrize("kind", ["calendar", "butterfly"])
+def test_an_arbitrage_refusal_says_which_quote_to_move_and_by_how_much(kind, tmp_path):
+    # the message's move, applied to the 1Y at-the-money quote, removes that arbitrage (the
+    # calendar one is the total variance of 6M at 25% over half a year against 1Y: about
+    # +0.65 vol points on 17%; the butterfly one brings the 40% peak down towards the wings)
+    with pytest.raises(InputError) as info:
+        fp.load_market(arb_file(tmp_path, kind))
+    msg = str(info.value)
+    if kind == "calendar":
+        found = re.search(r"raising the 1Y vol there by about ([\d.]+) vol points", msg)
+    else:
+        found = re.search(r"moving its 1 quote by ([+-][\d.]+) vol points clears it", msg)
+    assert found, msg
+    move = float(found.group(1)) / 100.0 + (0.0005 if kind == "calendar" else 0.0)
+    rows = [list(r) for r in (CALENDAR_ROWS if kind == "calendar" else BUTTERFLY_ROWS)]
+    rows[1][2] += move
+    fixed = write(tmp_path / "fixed.toml", market_toml(
+        rate=0.02, q=0.02, surface=(["6M", "1Y"], ARB_STRIKES, tuple(map(tuple, rows)))))
+    try:
+        fp.load_market(fixed)
+    except InputError as exc:
+        assert f"{kind} arbitrage" not in str(exc), str(exc)

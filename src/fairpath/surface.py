@@ -198,11 +198,18 @@ class VolSurface:
             if prev is not None:
                 bad = w < prev - CALENDAR_TOL * max(1.0, float(np.max(prev)))
                 if bad.any():
-                    y = grid[np.argmax(bad)]
+                    at = int(np.argmax(prev - w))  # where total variance falls most
+                    y = grid[at]
+                    t0, t1 = self.times[i - 1], self.times[i]
+                    need = math.sqrt(prev[at] / t1) - math.sqrt(max(w[at], 0.0) / t1)
+                    cut = math.sqrt(prev[at] / t0) - math.sqrt(w[at] / t0)
                     raise InputError(
                         f"calendar arbitrage: total variance falls from tenor {names[i - 1]} "
                         f"to {names[i]} at strike {self._strike_name(i, y)} (forward "
-                        f"moneyness {y:+.3f})", source=source, key=key)
+                        f"moneyness {y:+.3f}); look at those two quotes: raising the "
+                        f"{names[i]} vol there by about {100 * need:.2f} vol points, or "
+                        f"lowering the {names[i - 1]} one by about {100 * cut:.2f}, removes "
+                        "it", source=source, key=key)
             prev = w
             g, y = r.butterfly()
             if g.min() < -BUTTERFLY_TOL:
@@ -210,8 +217,29 @@ class VolSurface:
                 raise InputError(
                     f"butterfly arbitrage at tenor {names[i]} near strike "
                     f"{self._strike_name(i, yy)}: Gatheral's density condition g = "
-                    f"{g.min():.3g} < 0 (the smile is too steep or too curved there)",
-                    source=source, key=key)
+                    f"{g.min():.3g} < 0 (the smile is too steep or too curved there)"
+                    f"{self._butterfly_fix(i, yy)}", source=source, key=key)
+
+    def _butterfly_fix(self, i: int, y: float) -> str:
+        """The smallest move of one of the three quotes nearest ``y`` on tenor ``i`` (up or
+        down, in steps of a quarter of a vol point up to 30) that clears the row's density
+        condition, said as a clause (or that none does)."""
+        fr = (self.fwd_ratio or [1.0] * len(self.times))[i]
+        ys = np.log(np.asarray(self.strikes) / fr)
+        near = [int(j) for j in np.argsort(np.abs(ys - y))[:3]]
+        t = self.times[i]
+        row = np.asarray(self.vols[i], dtype=float)
+        for step in np.arange(1, 121) * 0.0025:
+            for j in near:
+                for sign in (1.0, -1.0):
+                    trial = row.copy()
+                    trial[j] += sign * step
+                    if trial[j] > 0 and _Row.build(ys, trial ** 2 * t).butterfly()[0].min() \
+                            >= -BUTTERFLY_TOL:
+                        return (f"; moving its {self.strikes[j]:g} quote by "
+                                f"{100 * sign * step:+.2f} vol points clears it")
+        quotes = ", ".join(f"{self.strikes[j]:g}" for j in sorted(near))
+        return f"; no single move of its {quotes} quotes of up to 30 vol points does"
 
     def _strike_name(self, i: int, y: float) -> str:
         fr = (self.fwd_ratio or [1.0] * len(self.times))[i]
