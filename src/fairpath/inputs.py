@@ -20,6 +20,9 @@ SHOW_LIMIT = 60
 #: Largest size of an amount (quantity, notional, payout, rebate) or a price level (spot,
 #: strike, fixing) in a file: beyond it products of two of them approach float overflow.
 MAX_AMOUNT = 1e15
+#: Largest vol a file may give, flat or a surface quote (500%): a larger one is a percentage
+#: typed as a number.
+MAX_VOL = 5.0
 
 
 def read_toml(path: str | Path) -> dict[str, Any]:
@@ -126,6 +129,16 @@ class Table:
             raise self.error(name, f"{value:g} is beyond {limit:g} in size, larger than any "
                              "amount or level this tool prices")
         return value
+
+    def check_vol(self, name: str, value: Any, *, positive: bool = False, hint: str = ""
+                  ) -> float:
+        """A Black vol: finite, not negative (``positive``: above zero), at most ``MAX_VOL``
+        (else a percentage typed as a number; ``hint`` is added to that message)."""
+        v = self.check_number(name, value, positive=positive, nonnegative=True)
+        if v > MAX_VOL:
+            raise self.error(name, f"{v:g} is a vol of {v:.0%}; a percentage? write "
+                             f"{v / 100:g} for {v:g}%{hint}")
+        return v
 
     def integer(self, name: str, default: Any = _MISSING, *, minimum: int | None = None) -> int:
         value = self.raw(name, default)

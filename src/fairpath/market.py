@@ -30,8 +30,6 @@ from fairpath.surface import VolSurface, parse_surface
 
 #: Tolerance on the smallest eigenvalue of a correlation matrix (rounding in hand-typed files).
 PSD_TOLERANCE = 1e-10
-#: Largest vol a market file may give (500%): a larger one is a percentage typed as a number.
-MAX_VOL = 5.0
 #: Largest absolute rate or dividend yield a market file may give (100%, continuously
 #: compounded): a larger one is a percentage typed as a number.
 MAX_RATE = 1.0
@@ -452,13 +450,13 @@ def load_market(path: str | Path) -> Market:
         elif a.has("vol"):
             if a.has("vol_tenors") or a.has("vols"):
                 raise a.error("vol", "give either 'vol' or 'vol_tenors' + 'vols', not both")
-            vol = VolCurve.flat(_vol(a, "vol", a.raw("vol")))
+            vol = VolCurve.flat(a.check_vol("vol", a.raw("vol")))
         elif a.has("vol_tenors"):
             times = tenor_times(a, "vol_tenors")
             vols = a.list("vols")
             if len(vols) != len(times):
                 raise a.error("vols", f"has {len(vols)} values for {len(times)} tenors")
-            vols = [_vol(a, f"vols[{i}]", v) for i, v in enumerate(vols)]
+            vols = [a.check_vol(f"vols[{i}]", v) for i, v in enumerate(vols)]
             w = [v * v * t for v, t in zip(vols, times, strict=True)]
             for i in range(1, len(w)):
                 if w[i] < w[i - 1] - 1e-14:
@@ -537,15 +535,6 @@ def _rate(tab: Table, name: str, value) -> float:
     if abs(v) > MAX_RATE:
         raise tab.error(name, f"{v:g} is {v:.0%} continuously compounded; a percentage? write "
                         f"{v / 100:g} for {v:g}%")
-    return v
-
-
-def _vol(tab: Table, name: str, value) -> float:
-    """A Black vol: finite, not negative, at most MAX_VOL (else a percentage)."""
-    v = tab.check_number(name, value, nonnegative=True)
-    if v > MAX_VOL:
-        raise tab.error(name, f"{v:g} is a vol of {v:.0%}; a percentage? write {v / 100:g} for "
-                        f"{v:g}%")
     return v
 
 

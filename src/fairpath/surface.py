@@ -51,8 +51,6 @@ LOCAL_VAR_FLOOR = 1e-4
 #: Points of the log-moneyness grid of the local-vol table, and its half-width in standard
 #: deviations of the longest maturity.
 Y_POINTS = 401
-#: Largest vol a surface quote may be (500%, as for a flat vol): a larger one is a percentage
-MAX_SURFACE_VOL = 5.0
 Y_WIDTH = 6.0
 #: Tolerances of the arbitrage checks (rounding in hand-typed quotes).
 CALENDAR_TOL = 1e-10
@@ -448,10 +446,8 @@ def parse_surface(tab, valuation, day_count: str) -> VolSurface:
     # a smile typed in percent (25 for 0.25) would otherwise be refused as an arbitrage
     for i, row in enumerate(vols):
         for j, v in enumerate(row):
-            if v > MAX_SURFACE_VOL:
-                raise tab.error(f"vols[{i}][{j}]", f"{v:g} is a vol of {v:.0%}; a percentage? "
-                                f"write {v / 100:g} for {v:g}% (every vol of the surface as a "
-                                "fraction: 0.25 for 25%)")
+            tab.check_vol(f"vols[{i}][{j}]", v, hint=" (every vol of the surface as a "
+                          "fraction: 0.25 for 25%)")
     tab.finish()
     try:
         return VolSurface(tuple(times), tuple(strikes), tuple(vols), label=tab.prefix,
