@@ -589,26 +589,31 @@ def combine(moments: dict[Block, Moments], blocks: list[Block], controls: list[C
         groups = None
         quant = float(stats.norm.ppf(0.975))
 
-    def estimate(subset: list[int]) -> tuple[float, float]:
-        """(price, variance of the price) with the controls in ``subset``."""
+    def slope(subset: list[int]) -> tuple[np.ndarray, np.ndarray]:
+        """The columns of the controls in ``subset`` and the least-squares slope of the
+        payoff on them over every path."""
         idx = np.array(subset, dtype=int) + 1
-        if subset:
-            coef = np.linalg.lstsq(cov[np.ix_(idx, idx)], cov[idx, 0], rcond=None)[0]
-        if groups is not None:  # randomized QMC: spread of the scramblings' estimates
-            est = groups[:, 0] - (groups[:, idx] - mu[subset]) @ coef if subset else groups[:, 0]
-            return float(est.mean()), float(np.var(est, ddof=1)) / len(est)
-        if not subset:
-            return float(pooled.mean[0]), pooled_variance(subset)
-        return float(pooled.mean[0] - coef @ (pooled.mean[idx] - mu[subset])), \
-            pooled_variance(subset)
+        coef = np.linalg.lstsq(cov[np.ix_(idx, idx)], cov[idx, 0], rcond=None)[0] \
+            if subset else np.zeros(0)
+        return idx, coef
+
+    def residual_variance(idx: np.ndarray, coef: np.ndarray) -> float:
+        """The price's variance with those controls as if the paths were independent."""
+        return max(float(cov[0, 0] - cov[idx, 0] @ coef), 0.0) / pooled.n
 
     def pooled_variance(subset: list[int]) -> float:
         """The price's variance as if the paths were independent (pseudo-random)."""
-        idx = np.array(subset, dtype=int) + 1
-        if not subset:
-            return float(cov[0, 0]) / pooled.n
-        coef = np.linalg.lstsq(cov[np.ix_(idx, idx)], cov[idx, 0], rcond=None)[0]
-        return max(float(cov[0, 0] - cov[idx, 0] @ coef), 0.0) / pooled.n
+        return residual_variance(*slope(subset))
+
+    def estimate(subset: list[int]) -> tuple[float, float]:
+        """(price, variance of the price) with the controls in ``subset``."""
+        idx, coef = slope(subset)
+        if groups is not None:  # randomized QMC: spread of the scramblings' estimates
+            est = groups[:, 0] - (groups[:, idx] - mu[subset]) @ coef if subset else groups[:, 0]
+            return float(est.mean()), float(np.var(est, ddof=1)) / len(est)
+        price = float(pooled.mean[0] - coef @ (pooled.mean[idx] - mu[subset])) if subset \
+            else float(pooled.mean[0])
+        return price, residual_variance(idx, coef)
 
     # Which controls. Every usable one by default: least squares on every path never leaves
     # more variance with more controls, and for pseudo-random numbers that variance is known
@@ -619,7 +624,8 @@ def combine(moments: dict[Block, Moments], blocks: list[Block], controls: list[C
     # smallest of several spreads of 16 numbers is small partly by chance, and choosing it
     # reported too narrow intervals (93.2% coverage in the study, the digital 91% with 2.5% of
     # runs beyond 4 standard errors). So another set replaces all of them only when its spread
-    # is smaller beyond chance: by more than the 95% point of the F law of two spreads.
+    # is smaller beyond chance: one control alone beyond the SWITCH_LEVEL point of the F law of
+    # two spreads, none at all beyond the OFF_LEVEL point.
     raw = estimate([])
     var_raw = raw[1]
     chosen = list(usable) if force is None else [i for i in usable if controls[i].name in force]
