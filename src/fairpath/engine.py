@@ -406,6 +406,21 @@ class Simulation:
     progress: bool = False
     #: threads for the blocks (None: ``FAIRPATH_THREADS`` or every core)
     threads: int | None = None
+
+    def apply(self, settings: Settings) -> str | None:
+        """Take the run's progress bar and threads from ``settings``, and fall back to the
+        pseudo-random sampler where the Sobol dimension exceeds the generator's limit; the
+        fallback's message, or None."""
+        self.progress = settings.progress
+        self.threads = None if settings.threads is None else engine_threads(settings.threads)
+        dim = self.factors * self.steps
+        if self.sampler.name != "sobol" or dim <= SOBOL_MAX_DIM:
+            return None
+        self.sampler = make_sampler("pseudo", seed=self.sampler.seed,
+                                    antithetic=settings.antithetic, stream_key=settings.stream)
+        return (f"the Sobol dimension {dim} ({self.steps} dates x {self.factors} factors) "
+                f"exceeds the generator's limit of {SOBOL_MAX_DIM}: fell back to the "
+                "pseudo-random sampler")
     def run_blocks(self, blocks: list[Block], chunk_paths: int | None = None
                    ) -> dict[Block, BlockResult]:
         """Simulate ``blocks``; return each block's moments for every product.
@@ -564,6 +579,15 @@ def replicate_means(moments: dict[Block, Moments], blocks: list[Block]) -> np.nd
     return np.array([merge_all(v).mean for _, v in sorted(reps.items())])
 
 
+def quantile95(replicates: int | None) -> float:
+    """The 95% interval's half-width in standard errors: Student's t with ``replicates - 1``
+    degrees of freedom for randomized QMC (the spread of that many scramblings), else the
+    normal law."""
+    if replicates is None:
+        return float(stats.norm.ppf(0.975))
+    return float(stats.t.ppf(0.975, replicates - 1))
+
+
 def combine(moments: dict[Block, Moments], blocks: list[Block], controls: list[ControlVariate],
             sampler: Sampler, force: tuple[str, ...] | None = None) -> Estimate:
     """Price, standard error and interval from the blocks' moments (see the module notes).
@@ -582,12 +606,8 @@ def combine(moments: dict[Block, Moments], blocks: list[Block], controls: list[C
     scale = 1.0 + np.abs(pooled.mean[1:]) ** 2
     usable = [i for i in range(len(controls)) if var_x[i] > 1e-13 * scale[i]]
 
-    if sampler.replicates is not None:
-        groups = replicate_means(moments, blocks)
-        quant = float(stats.t.ppf(0.975, len(groups) - 1))
-    else:
-        groups = None
-        quant = float(stats.norm.ppf(0.975))
+    groups = replicate_means(moments, blocks) if sampler.replicates is not None else None
+    quant = quantile95(None if groups is None else len(groups))
 
     def slope(subset: list[int]) -> tuple[np.ndarray, np.ndarray]:
         """The columns of the controls in ``subset`` and the least-squares slope of the
@@ -657,7 +677,7 @@ def combine(moments: dict[Block, Moments], blocks: list[Block], controls: list[C
         if distinct == 1:
             mc = pooled_variance(chosen)
             if mc > var:
-                var, quant = mc, float(stats.norm.ppf(0.975))
+                var, quant = mc, quantile95(None)
                 notes.append(f"the {len(groups)} Sobol scramblings gave the same estimate, so "
                              "their spread is no measure of the error: the error bar is the "
                              "pseudo-random one over every path (conservative)")
@@ -807,7 +827,8 @@ RICHARDSON_STREAM = 0x7FFFFFFD
 
 
 def richardson(products: list[Product], market: Market, settings: Settings, paths: int,
-               source: str | None = None) -> list[tuple[float, float, float, float]] | None:
+               source: str | None = None
+               ) -> list[tuple[float, float, float, float, float]] | None:
     """Prices with the bias of discretised steps removed to first order, and that bias.
 
     Every path is simulated twice on one Brownian path: with twice the run's steps a day, and
@@ -816,33 +837,33 @@ def richardson(products: list[Product], market: Market, settings: Settings, path
     ``2 V_fine - V_coarse`` has none to first order (Richardson extrapolation) and the run's
     own bias is about ``2 (V_coarse - V_fine)``; each error bar comes from the spread of that
     combination itself (common random numbers). No control variates. None when the models'
-    steps are exact. Returns per product ``(price, stderr, bias, bias stderr)``.
+    steps are exact. Returns per product ``(price, stderr, the 95% interval's quantile, bias,
+    bias stderr)``.
     """
     from fairpath.models.base import Coarsened
 
     spd = settings.steps_per_day
     fine = dataclasses.replace(settings, paths=paths, control=False, steps_per_day=2 * spd,
                                stream=(*settings.stream, RICHARDSON_STREAM))
-    smp = fine.make_sampler()
-    sim = Simulation(products, [market, market], smp, [[] for _ in products], source, 2 * spd)
+    sim = Simulation(products, [market], fine.make_sampler(), [[] for _ in products], source,
+                     2 * spd)
     if sim.stepper is None or not sim.stepper.discretised:
         return None
-    if smp.name == "sobol" and sim.factors * sim.steps > SOBOL_MAX_DIM:
-        smp = make_sampler("pseudo", seed=smp.seed, stream_key=fine.stream)
-        sim.sampler = smp
+    sim.apply(fine)
+    smp = sim.sampler
+    # the twin: the run's own steps, fed the fine normals summed in pairs
     coarse = Coarsened(sim.models.stepper(sim.grid_times, spd), sim.sim_times, 2)
-    sim.setups[1] = ScenarioSetup(market, sim.models, sim.grid_times, coarse)
-    sim.threads = None if settings.threads is None else engine_threads(settings.threads)
-    sim.progress = settings.progress
+    sim.setups.append(ScenarioSetup(market, sim.models, sim.grid_times, coarse))
     blocks = smp.plan(paths)
     out = Run(sim, smp, products, [[] for _ in products], blocks=blocks,
               cache=sim.run_blocks(blocks, settings.chunk_paths), paths=paths)
     result = []
+    quant = quantile95(smp.replicates)
     for j in range(len(products)):
         combo = out.weighted(j)
         value, se = combo({0: 2.0, 1: -1.0})
         bias, bias_se = combo({1: 2.0, 0: -2.0})
-        result.append((value, se, bias, bias_se))
+        result.append((value, se, quant, bias, bias_se))
     return result
 
 
@@ -883,22 +904,16 @@ def run(products: list[Product], scenarios: list[Market], settings: Settings, *,
     notes = [*models.notes(settings.steps_per_day)]
     if sim.stepper is not None:
         notes.extend(sim.stepper.notes)
-    sim.progress = settings.progress
-    sim.threads = None if settings.threads is None else engine_threads(settings.threads)
+    fallback = sim.apply(settings)
     if sim.stepper is not None:
         models.check_run(sim.stepper.variance, paths)
         tail_notes = unseen_tail_controls(sim, controls, paths)
         for c in control_notes:
             c.extend(tail_notes)
-    dim = sim.factors * sim.steps
-    if smp.name == "sobol" and dim > SOBOL_MAX_DIM:
-        msg = (f"the Sobol dimension {dim} ({sim.steps} dates x {sim.factors} factors) exceeds "
-               f"the generator's limit of {SOBOL_MAX_DIM}: fell back to the pseudo-random sampler")
-        warnings.warn(msg, SamplingWarning, stacklevel=3)
-        notes.append(msg)
-        smp = make_sampler("pseudo", seed=smp.seed, antithetic=settings.antithetic,
-                           stream_key=settings.stream)
-        sim.sampler = smp
+    if fallback is not None:
+        warnings.warn(fallback, SamplingWarning, stacklevel=3)
+        notes.append(fallback)
+        smp = sim.sampler
     out = Run(sim, smp, products, controls, notes=notes, control_notes=control_notes)
     if sim.steps == 0:
         return out

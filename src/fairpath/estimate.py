@@ -212,27 +212,29 @@ def price_run(products: list[Product], market: Market, settings: Settings, *,
                                        time.perf_counter() - t_start)
                        for res, x in zip(out, extrapolated, strict=True)]
                 return out
-        per_day = "a day" if settings.steps_per_day == 1 else \
-            f"{settings.steps_per_day} a day"
         out = [dataclasses.replace(res, notes=(
             *res.notes, f"discretisation: the error bar is the sampling error alone; the "
-            f"log-Euler steps ({per_day}) add a bias of the order of the step, not in it; "
-            "--richardson removes it to first order and measures it, in about four times "
-            "the time"))
+            f"log-Euler steps ({per_day(settings.steps_per_day)}) add a bias of the order of "
+            "the step, not in it; --richardson removes it to first order and measures it, in "
+            "about four times the time"))
             for res in out]
     return out
 
 
-def with_richardson(res: PriceResult, value: float, se: float, bias: float, bias_se: float,
-                    steps_per_day: int, seconds: float) -> PriceResult:
+def per_day(steps_per_day: int) -> str:
+    """``"a day"`` or ``"N a day"``: the steps of a discretised model, in a note."""
+    return "a day" if steps_per_day == 1 else f"{steps_per_day} a day"
+
+
+def with_richardson(res: PriceResult, value: float, se: float, quant: float, bias: float,
+                    bias_se: float, steps_per_day: int, seconds: float) -> PriceResult:
     """The result with its price replaced by the Richardson extrapolation of the steps (no
     control variates), its error bar from the spread of the extrapolated values, and the
     measured bias of the plain run said in a note and under ``discretisation_bias``."""
-    per_day = "a day" if steps_per_day == 1 else f"{steps_per_day} a day"
-    quant = (res.ci95[1] - res.price) / res.stderr if res.stderr > 0 else 1.96
+    plain = per_day(steps_per_day)
     note = (f"discretisation removed to first order (Richardson: 2 x the price at "
-            f"{2 * steps_per_day} steps a day - the price at {per_day}, on the same Brownian "
-            f"paths, no control variates): the plain price at {per_day} was "
+            f"{2 * steps_per_day} steps a day - the price at {plain}, on the same Brownian "
+            f"paths, no control variates): the plain price at {plain} was "
             f"{res.price:.6g}, and its steps' bias is measured at {bias:+.4g} (stderr "
             f"{bias_se:.2g})")
     extras = {**res.extras, "discretisation_bias": {
