@@ -399,6 +399,18 @@ class ScalesWithSpot:
         self.escrow = escrow_table(market, self.names, self.times)
         self.notes = ()
 
+    def state(self, x: np.ndarray) -> PathState:
+        """The simulated escrowed log-levels ``x`` as a path state: the dividends to come
+        added, and the diffusing part kept where scenarios will :meth:`respot` it."""
+        extra: dict = {}
+        return PathState(add_escrow(x, self.escrow, keep=extra if self.for_respot else None),
+                         extra)
+
+    def state_changed(self, x: np.ndarray, base: PathState, keep: np.ndarray) -> PathState:
+        """As :meth:`state` for the assets not in ``keep`` (simulated again); the others'
+        rows are ``base``'s (:meth:`Stepper.simulate_changed`)."""
+        return copy_kept(add_escrow(x, self.escrow, ~keep), base, keep)
+
     def respot(self, state: PathState, market: Market) -> PathState:
         new = escrowed_log_spots(market, self.names)
         base = state.log_levels

@@ -30,8 +30,6 @@ from fairpath.models.base import (
     PathState,
     ScalesWithSpot,
     Stepper,
-    add_escrow,
-    copy_kept,
     psd_cholesky,
 )
 from fairpath.registry import MODELS, Capability
@@ -114,18 +112,15 @@ class ExactSteps(ScalesWithSpot, Stepper):
         """The correlated increment of asset ``a`` is ``drift[a] + sum_b L[a, b] z[b]``,
         accumulated path by path (:func:`fairpath.kernels.log_paths`), so every path's
         arithmetic is the same whatever the number of paths in the batch."""
-        x = log_paths(z, self.drift, self.factor, self.log_start)
-        extra: dict = {}
-        return PathState(add_escrow(x, self.escrow, keep=extra if self.for_respot else None),
-                         extra)
+        return self.state(log_paths(z, self.drift, self.factor, self.log_start))
 
     def asset_inputs(self, a: int) -> tuple:
         return (self.times, self.drift[a], self.factor[:, a, :], self.log_start[a],
                 None if self.escrow is None else self.escrow[a])
 
     def simulate_changed(self, z: np.ndarray, base: PathState, keep: np.ndarray) -> PathState:
-        x = log_paths(z, self.drift, self.factor, self.log_start, ~keep)
-        return copy_kept(add_escrow(x, self.escrow, ~keep), base, keep)
+        return self.state_changed(log_paths(z, self.drift, self.factor, self.log_start, ~keep),
+                                  base, keep)
 
     def first_step(self):
         L = self.factor[0]

@@ -24,8 +24,6 @@ from fairpath.models.base import (
     PathState,
     ScalesWithSpot,
     Stepper,
-    add_escrow,
-    copy_kept,
     psd_cholesky,
 )
 from fairpath.models.black import check_lognormal_tail, step_covariance
@@ -127,15 +125,13 @@ class LocalSteps(ScalesWithSpot, Stepper):
     discretised = True
 
     def simulate(self, z: np.ndarray) -> PathState:
-        extra: dict = {}
-        return PathState(self._levels(z, None, extra if self.for_respot else None), extra)
+        return self.state(self._escrowed(z, None))
 
-    def _levels(self, z: np.ndarray, active: np.ndarray | None, keep: dict | None = None
-                ) -> np.ndarray:
-        # finer than the grid (steps_per_day): only the steps ending on its dates are kept
-        x = local_vol_paths(z, self.corr, self.log_fwd, self.step_sd, self.y0, self.dy,
-                            self.gbm_sd, self.is_lv, self.log_start, active, self.grid_cols)
-        return add_escrow(x, self.escrow, active, keep)
+    def _escrowed(self, z: np.ndarray, active: np.ndarray | None) -> np.ndarray:
+        """The escrowed log-levels of the ``active`` assets (default: all), on the grid's
+        dates (finer than the grid with steps_per_day: only the steps ending on them)."""
+        return local_vol_paths(z, self.corr, self.log_fwd, self.step_sd, self.y0, self.dy,
+                               self.gbm_sd, self.is_lv, self.log_start, active, self.grid_cols)
 
     def asset_inputs(self, a: int) -> tuple:
         return (self.sim_times, self.grid_cols, self.log_fwd[a], self.step_sd[a], self.y0[a],
@@ -143,7 +139,7 @@ class LocalSteps(ScalesWithSpot, Stepper):
                 None if self.escrow is None else self.escrow[a])
 
     def simulate_changed(self, z: np.ndarray, base: PathState, keep: np.ndarray) -> PathState:
-        return copy_kept(self._levels(z, ~keep), base, keep)
+        return self.state_changed(self._escrowed(z, ~keep), base, keep)
 
 
 _TABLES: dict = {}
