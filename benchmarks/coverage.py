@@ -52,6 +52,8 @@ from __future__ import annotations
 import sys
 from pathlib import Path
 
+import benchmark_tools  # shared helpers: imported before this folder leaves the path
+
 # This file shares its name with the code-coverage package, which numba tries to import: keep
 # this folder off the import path, so that such an import finds the package (or nothing) and
 # never this script.
@@ -63,7 +65,6 @@ import dataclasses  # noqa: E402
 import json  # noqa: E402
 import math  # noqa: E402
 import os  # noqa: E402
-import subprocess  # noqa: E402
 import time  # noqa: E402
 import warnings  # noqa: E402
 from datetime import date, datetime, timedelta  # noqa: E402
@@ -110,6 +111,7 @@ REF_BUDGET_QUICK = 90.0
 REF_FILE = Path(__file__).resolve().with_name("coverage_references.json")
 #: what the 95% interval claims, per sampler: P(|z| > 3), P(|z| > 4), the spread of z
 CLAIMED = {"sobol": stats.t(15), "pseudo": stats.norm()}
+
 
 
 def black_market() -> fp.Market:
@@ -250,7 +252,8 @@ def long_reference(key: str, product: fp.Product, market: fp.Market, target: flo
         progress(f"reference {key}: run {len(runs)}, stderr so far "
                  f"{summarize_runs(runs)['stderr']:.2e} (target {target:.2e})")
     if added:
-        entry.update(date=date.today().isoformat(), fairpath=fp.__version__, commit=git_commit())
+        entry.update(date=date.today().isoformat(), fairpath=fp.__version__,
+                     commit=benchmark_tools.git_commit())
         cache[key] = entry
         save_cache(cache)
     out = summarize_runs(runs)
@@ -274,59 +277,17 @@ def run_seeds(product, market, sampler: str, seeds: int, paths: int) -> list[dic
 
 
 def case_stats(runs: list[dict], ref: float, ref_se: float, sampler: str) -> dict:
-    """Coverage and the law of z over one case's runs. ``bias`` is the mean error over the
-    runs' RMS stderr, a bias measure that a correlation between a run's error and its stderr
-    (skewed payoffs) does not move, unlike the mean z; its stderr counts the reference's."""
-    n = len(runs)
-    covered = sum(r["lo"] <= ref <= r["hi"] for r in runs)
-    zero = [r for r in runs if r["stderr"] <= 0]
-    z = np.array([(r["price"] - ref) / r["stderr"] for r in runs if r["stderr"] > 0])
-    law = CLAIMED[sampler]
-    p3, p4 = 2 * law.sf(3.0), 2 * law.sf(4.0)
-    beyond3 = int(np.sum(np.abs(z) > 3)) + sum(r["price"] != ref for r in zero)
-    beyond4 = int(np.sum(np.abs(z) > 4)) + sum(r["price"] != ref for r in zero)
-    cover = covered / n
-    prices = np.array([r["price"] for r in runs])
-    rms = math.sqrt(float(np.mean([r["stderr"] ** 2 for r in runs]))) or float("nan")
-    return {
-        "seeds": n, "coverage": cover, "coverage_se": math.sqrt(0.95 * 0.05 / n),
-        "coverage_se_measured": math.sqrt(cover * (1 - cover) / n),
-        "beyond3": beyond3 / n, "beyond4": beyond4 / n, "beyond4_count": beyond4,
-        "claimed_beyond3": p3, "claimed_beyond4": p4,
-        # the chance of at least this many runs beyond 4 if the interval's law held
-        "p_beyond4": float(stats.binom.sf(beyond4 - 1, n, p4)) if beyond4 else 1.0,
-        "max_abs_z": float(np.max(np.abs(z))) if len(z) else None,
-        "mean_z": float(z.mean()) if len(z) else None,
-        "mean_z_se": float(z.std(ddof=1) / math.sqrt(len(z))) if len(z) > 1 else None,
-        "z_sd": float(z.std(ddof=1)) if len(z) > 1 else None,
-        "claimed_z_sd": float(law.std()), "zero_stderr_runs": len(zero),
-        "median_stderr": float(np.median([r["stderr"] for r in runs])),
-        "bias": float((prices.mean() - ref) / rms), "bias_se": float(
-            math.sqrt(prices.var(ddof=1) / n + ref_se**2) / rms),
-    }
+    """Coverage and the law of z over one case's runs (``benchmark_tools.z_stats``; a run
+    covers when its ``ci95`` holds the reference)."""
+    return benchmark_tools.z_stats(np.array([r["price"] for r in runs]),
+                         np.array([r["stderr"] for r in runs]),
+                         np.array([r["lo"] <= ref <= r["hi"] for r in runs]), ref, ref_se,
+                         CLAIMED[sampler])
 
 
 def pooled(rows: list[dict]) -> dict[str, dict]:
     """Per sampler, the runs of every case together: is the excess in the tails a pattern?"""
-    out = {}
-    for sampler in SAMPLERS:
-        these = [r["stats"] for r in rows if r["sampler"] == sampler]
-        if not these:
-            continue
-        n = sum(s["seeds"] for s in these)
-        law = CLAIMED[sampler]
-        p3, p4 = 2 * law.sf(3.0), 2 * law.sf(4.0)
-        k3 = round(sum(s["beyond3"] * s["seeds"] for s in these))
-        k4 = sum(s["beyond4_count"] for s in these)
-        cover = sum(s["coverage"] * s["seeds"] for s in these) / n
-        out[sampler] = {
-            "cases": len(these), "runs": n, "coverage": cover,
-            "coverage_se": math.sqrt(0.95 * 0.05 / n), "beyond3": k3, "beyond4": k4,
-            "claimed_beyond3": n * p3, "claimed_beyond4": n * p4,
-            "p_beyond3": float(stats.binom.sf(k3 - 1, n, p3)) if k3 else 1.0,
-            "p_beyond4": float(stats.binom.sf(k4 - 1, n, p4)) if k4 else 1.0,
-            "max_abs_z": max((s["max_abs_z"] or 0.0) for s in these)}
-    return out
+    return benchmark_tools.pooled(rows, CLAIMED)
 
 
 def parse_only(text: str | None) -> dict[str, set[str]]:
@@ -347,18 +308,6 @@ def parse_only(text: str | None) -> dict[str, set[str]]:
             chosen.setdefault(k, set()).add(name)
     out.update(chosen)
     return out
-
-
-def git_commit() -> str:
-    here = Path(__file__).resolve().parent
-    try:
-        head = subprocess.run(["git", "rev-parse", "--short", "HEAD"], cwd=here,
-                              capture_output=True, text=True, check=True).stdout.strip()
-        dirty = subprocess.run(["git", "status", "--porcelain", "--", "../src"], cwd=here,
-                               capture_output=True, text=True, check=True).stdout.strip()
-    except (OSError, subprocess.CalledProcessError):
-        return "unknown"
-    return head + ("+uncommitted src changes" if dirty else "")
 
 
 # ---------------------------------------------------------------------------------------------
@@ -462,7 +411,7 @@ def main() -> None:
     if show:
         print(f"fairpath coverage study, {datetime.now().isoformat(timespec='seconds')}"
               f"{' (--quick)' if args.quick else ''}; fairpath {fp.__version__} "
-              f"({git_commit()}), {os.cpu_count()} cores, load average at start "
+              f"({benchmark_tools.git_commit()}), {os.cpu_count()} cores, load average at start "
               f"{', '.join(f'{x:.2f}' for x in load_start)}")
         print(f"  seeds 1..N per case (N: {seeds_of['black']} Black, {seeds_of['local-vol']} "
               f"local vol) at {args.paths:,} paths, default settings (16 Sobol scramblings, "
@@ -502,7 +451,8 @@ def main() -> None:
     if args.json:
         print(json.dumps({
             "date": datetime.now().isoformat(timespec="seconds"), "quick": args.quick,
-            "fairpath": fp.__version__, "commit": git_commit(), "cores": os.cpu_count(),
+            "fairpath": fp.__version__, "commit": benchmark_tools.git_commit(),
+            "cores": os.cpu_count(),
             "paths": args.paths, "seeds": seeds_of,
             "references": [dict(v, family=f, market=m, ratio_to_run_stderr=(
                 v["stderr"] / per_run[(f, m)] if per_run[(f, m)] else None))

@@ -44,6 +44,8 @@ from __future__ import annotations
 import sys
 from pathlib import Path
 
+import benchmark_tools  # shared helpers: imported before this folder leaves the path
+
 # This folder holds coverage.py, which shares its name with the code-coverage package that
 # numba tries to import: keep this folder off the import path, so that such an import finds
 # the package (or nothing) and never that script.
@@ -52,9 +54,7 @@ sys.path[:] = [p for p in sys.path if Path(p or ".").resolve() != _HERE]
 
 import argparse  # noqa: E402
 import json  # noqa: E402
-import math  # noqa: E402
 import os  # noqa: E402
-import subprocess  # noqa: E402
 import time  # noqa: E402
 import warnings  # noqa: E402
 from collections import Counter  # noqa: E402
@@ -76,6 +76,7 @@ SEEDS, SEEDS_QUICK, PATHS = 200, 40, 4096
 REPLICATES = 16
 #: the law the interval claims, per sampler, and its 97.5% point
 CLAIMED = {"sobol": stats.t(REPLICATES - 1), "pseudo": stats.norm()}
+
 QUANTILE = {name: float(law.ppf(0.975)) for name, law in CLAIMED.items()}
 
 #: name -> (kind, strike, right, title)
@@ -136,73 +137,19 @@ def run_seeds(product, market, sampler: str, seeds: int, paths: int) -> dict[str
 
 
 def case_stats(runs: list[dict], ref: float, sampler: str) -> dict:
-    n = len(runs)
-    q = QUANTILE[sampler]
-    law = CLAIMED[sampler]
-    p3, p4 = 2 * law.sf(3.0), 2 * law.sf(4.0)
-    covered = sum(abs(r["value"] - ref) <= q * r["stderr"] for r in runs)
-    zero = [r for r in runs if r["stderr"] <= 0]
-    z = np.array([(r["value"] - ref) / r["stderr"] for r in runs if r["stderr"] > 0])
-    off_zero = sum(r["value"] != ref for r in zero)
-    beyond3 = int(np.sum(np.abs(z) > 3)) + off_zero
-    beyond4 = int(np.sum(np.abs(z) > 4)) + off_zero
+    """Coverage and the law of z over one case's runs (``benchmark_tools.z_stats``; a run
+    covers when ``value +- q stderr`` holds the closed form), and the methods reported."""
     values = np.array([r["value"] for r in runs])
-    rms = math.sqrt(float(np.mean([r["stderr"] ** 2 for r in runs]))) or float("nan")
-    cover = covered / n
-    return {
-        "seeds": n, "coverage": cover, "coverage_se": math.sqrt(0.95 * 0.05 / n),
-        "beyond3": beyond3 / n, "beyond3_count": beyond3, "beyond4": beyond4 / n,
-        "beyond4_count": beyond4, "claimed_beyond3": p3, "claimed_beyond4": p4,
-        "p_beyond4": float(stats.binom.sf(beyond4 - 1, n, p4)) if beyond4 else 1.0,
-        "max_abs_z": float(np.max(np.abs(z))) if len(z) else None,
-        "mean_z": float(z.mean()) if len(z) else None,
-        "mean_z_se": float(z.std(ddof=1) / math.sqrt(len(z))) if len(z) > 1 else None,
-        "z_sd": float(z.std(ddof=1)) if len(z) > 1 else None,
-        "claimed_z_sd": float(law.std()), "zero_stderr_runs": len(zero),
-        "median_stderr": float(np.median([r["stderr"] for r in runs])),
-        "bias": float((values.mean() - ref) / rms),
-        "bias_se": float(math.sqrt(values.var(ddof=1) / n) / rms),
-        "methods": dict(Counter(r["method"] for r in runs)),
-    }
+    stderrs = np.array([r["stderr"] for r in runs])
+    covered = np.abs(values - ref) <= QUANTILE[sampler] * stderrs
+    out = benchmark_tools.z_stats(values, stderrs, covered, ref, 0.0, CLAIMED[sampler])
+    out["methods"] = dict(Counter(r["method"] for r in runs))
+    return out
 
 
 def pooled(rows: list[dict]) -> dict[str, dict]:
     """Per sampler, the runs of every case together."""
-    out = {}
-    for sampler in SAMPLERS:
-        these = [r["stats"] for r in rows if r["sampler"] == sampler]
-        if not these:
-            continue
-        n = sum(s["seeds"] for s in these)
-        law = CLAIMED[sampler]
-        p3, p4 = 2 * law.sf(3.0), 2 * law.sf(4.0)
-        k3 = sum(s["beyond3_count"] for s in these)
-        k4 = sum(s["beyond4_count"] for s in these)
-        out[sampler] = {
-            "cases": len(these), "runs": n,
-            "coverage": sum(s["coverage"] * s["seeds"] for s in these) / n,
-            "coverage_se": math.sqrt(0.95 * 0.05 / n), "beyond3": k3, "beyond4": k4,
-            "claimed_beyond3": n * p3, "claimed_beyond4": n * p4,
-            "p_beyond3": float(stats.binom.sf(k3 - 1, n, p3)) if k3 else 1.0,
-            "p_beyond4": float(stats.binom.sf(k4 - 1, n, p4)) if k4 else 1.0}
-    return out
-
-
-def git_commit() -> str:
-    """The repository's commit, marked when the fairpath imported is this checkout's ``src``
-    with uncommitted changes, or named when it comes from elsewhere (an exported tree)."""
-    src = _HERE.parent / "src"
-    here = Path(fp.__file__).resolve().parent.parent
-    try:
-        head = subprocess.run(["git", "rev-parse", "--short", "HEAD"], cwd=_HERE,
-                              capture_output=True, text=True, check=True).stdout.strip()
-        dirty = subprocess.run(["git", "status", "--porcelain", "--", "../src"], cwd=_HERE,
-                               capture_output=True, text=True, check=True).stdout.strip()
-    except (OSError, subprocess.CalledProcessError):
-        return "unknown"
-    if here != src.resolve():
-        return f"{head} checkout; fairpath imported from {here}"
-    return head + ("+uncommitted src changes" if dirty else "")
+    return benchmark_tools.pooled(rows, CLAIMED)
 
 
 # ---------------------------------------------------------------------------------------------
@@ -290,7 +237,7 @@ def main() -> None:
     t_start = time.perf_counter()
     load_start = os.getloadavg()
     stamp = datetime.now().isoformat(timespec="seconds")
-    commit = git_commit()
+    commit = benchmark_tools.git_commit()
     show = not args.json
     if show:
         print(f"fairpath Greeks coverage study, {stamp}{' (--quick)' if args.quick else ''}; "

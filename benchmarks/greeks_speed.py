@@ -18,18 +18,14 @@ import argparse
 import json
 import os
 import statistics
-import sys
 import time
 import warnings
-from pathlib import Path
+
+# before fairpath: importing it makes numba look for the code-coverage package, which finds
+# coverage.py in this folder, and that script takes the folder off the import path
+from greeks_threads import demo_note, yardstick
 
 import fairpath as fp
-
-ROOT = Path(__file__).resolve().parents[1]
-# numba, importing fairpath, looks for the code-coverage package and finds coverage.py here,
-# which takes this folder off the path: put it back for the yardstick
-sys.path.insert(0, str(ROOT / "benchmarks"))
-from greeks_threads import yardstick  # noqa: E402
 
 TARGET = 6.0
 
@@ -47,8 +43,7 @@ def main() -> None:
     ap.add_argument("--json", action="store_true")
     args = ap.parse_args()
     warnings.simplefilter("ignore")
-    market = fp.load_market(ROOT / "markets" / "demo_smile.toml")
-    note = fp.load_product(ROOT / "payoffs" / "autocall_worst_of.toml")
+    market, note = demo_note()
     load = os.getloadavg()
     yard = yardstick()
     # compile the kernels, untimed (each timed call builds its own local-vol tables)

@@ -53,6 +53,7 @@ import time
 from datetime import date, datetime, timedelta
 from pathlib import Path
 
+import benchmark_tools
 import numpy as np
 import scipy
 
@@ -78,6 +79,7 @@ RATIO_TARGETS = {1: 20.0, 2: 20.0, 3: 1000.0, 4: 20.0}
 #: (8 seeds a path count), since the low-discrepancy ones are single calls and usually the best
 QL_BUDGET = 1.0
 QL_BUDGET_PR_QUICK = 0.25
+
 LV_RATIO_TARGET = 3.0  # local vol within 3x of the flat-vol time (issue 11)
 RATE_TARGET = 1e8  # asset-steps per second, task 5
 MEMORY_TARGET_MB = 500.0  # peak resident memory of the task-5 process at 2^20 paths
@@ -343,7 +345,7 @@ def long_run(product, mkt, max_runs: int = 40) -> dict:
                        f"independent runs of {REF_PATHS:,} paths (seeds {REF_SEED0}..."
                        f"{REF_SEED0 + k - 1}); stderr from the {16 * k} scramblings"),
             "date": date.today().isoformat(), "fairpath": fp.__version__,
-            "commit": git_commit()}
+            "commit": benchmark_tools.git_commit()}
 
 
 def references(tasks, refresh: bool) -> dict[int, dict]:
@@ -689,18 +691,6 @@ def profile_task5(paths: int = 1 << 16, top: int = 20) -> str:
 # ---------------------------------------------------------------------------------------------
 # Set-up and main
 # ---------------------------------------------------------------------------------------------
-def git_commit() -> str:
-    here = Path(__file__).resolve().parent
-    try:
-        head = subprocess.run(["git", "rev-parse", "--short", "HEAD"], cwd=here,
-                              capture_output=True, text=True, check=True).stdout.strip()
-        dirty = subprocess.run(["git", "status", "--porcelain", "--", "../src"], cwd=here,
-                               capture_output=True, text=True, check=True).stdout.strip()
-    except (OSError, subprocess.CalledProcessError):
-        return "unknown"
-    return head + ("+uncommitted src changes" if dirty else "")
-
-
 def machine() -> dict:
     import numba
     import QuantLib as ql
@@ -717,7 +707,7 @@ def machine() -> dict:
             "cores": os.cpu_count(), "load_average": list(os.getloadavg()),
             "python": platform.python_version(), "numpy": np.__version__,
             "scipy": scipy.__version__, "numba": numba.__version__, "quantlib": ql.__version__,
-            "fairpath": fp.__version__, "commit": git_commit(),
+            "fairpath": fp.__version__, "commit": benchmark_tools.git_commit(),
             "fairpath_threads": os.environ.get("FAIRPATH_THREADS", "every core")}
 
 
