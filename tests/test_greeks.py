@@ -237,13 +237,19 @@ def test_digital_likelihood_ratio_delta_gamma(sampler):
     assert auto.gamma["NORDA"].stderr == expect
 
 
+def one_asset_note() -> fp.Autocallable:
+    """A 18-month single-asset note: semiannual calls at 100%, 4% coupons above 80%, 60%
+    protection watched at maturity."""
+    obs = (date(2027, 6, 1), date(2027, 12, 1), date(2028, 6, 1))
+    return fp.Autocallable(assets=("NORDA",), observations=obs, notional=100.0,
+                           autocall_level=1.0, coupon=0.04, coupon_barrier=0.8,
+                           protection_barrier=0.6)
+
+
 def test_likelihood_ratio_and_bumps_agree_on_a_note():
     # an autocallable (jumping payoff): the two delta estimators agree within their errors
     m = market()
-    obs = (date(2027, 6, 1), date(2027, 12, 1), date(2028, 6, 1))
-    note = fp.Autocallable(assets=("NORDA",), observations=obs, notional=100.0,
-                           autocall_level=1.0, coupon=0.04, coupon_barrier=0.8,
-                           protection_barrier=0.6)
+    note = one_asset_note()
     lr = fp.greeks(note, m, paths=32768, sampler="pseudo", seed=23, method="lr")
     bump = fp.greeks(note, m, paths=32768, sampler="pseudo", seed=23, method="bump")
     a, b = lr.delta["NORDA"], bump.delta["NORDA"]
@@ -289,10 +295,7 @@ def test_autocall_likelihood_ratio_delta_matches_a_fine_bump_reference():
     # pseudo-random paths (its own error is a fifth of the estimate's below); the note jumps
     # at its triggers, so the likelihood ratio is the estimator under test
     m = market()
-    obs = (date(2027, 6, 1), date(2027, 12, 1), date(2028, 6, 1))
-    note = fp.Autocallable(assets=("NORDA",), observations=obs, notional=100.0,
-                           autocall_level=1.0, coupon=0.04, coupon_barrier=0.8,
-                           protection_barrier=0.6)
+    note = one_asset_note()
     struck = note.struck(m)
     fine = run([struck], [bumps.spot(m, "NORDA", 1.005), bumps.spot(m, "NORDA", 0.995)],
                Settings(paths=1 << 21, sampler="pseudo", seed=7, control=False))
