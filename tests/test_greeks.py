@@ -238,7 +238,7 @@ def test_digital_likelihood_ratio_delta_gamma(sampler):
 
 
 def one_asset_note() -> fp.Autocallable:
-    """A 18-month single-asset note: semiannual calls at 100%, 4% coupons above 80%, 60%
+    """An 18-month single-asset note: semiannual calls at 100%, 4% coupons above 80%, 60%
     protection watched at maturity."""
     obs = (date(2027, 6, 1), date(2027, 12, 1), date(2028, 6, 1))
     return fp.Autocallable(assets=("NORDA",), observations=obs, notional=100.0,

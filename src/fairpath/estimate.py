@@ -200,11 +200,12 @@ def price_run(products: list[Product], market: Market, settings: Settings, *,
                                est.controls, est.variance_reduction, tuple(these),
                                {"dates": [d.isoformat() for d in sim.grid_dates],
                                 "diagnostics": diag}, ctx))
-    if richardson_steps and not (sim.stepper is not None and sim.stepper.discretised):
+    discretised = sim.stepper is not None and sim.stepper.discretised
+    if richardson_steps and not discretised:
         out = [dataclasses.replace(res, notes=(
             *res.notes, "--richardson: these models' steps are exact (no discretisation "
             "bias), so the price is the plain one")) for res in out]
-    if sim.stepper is not None and sim.stepper.discretised:
+    if discretised:
         if richardson_steps:
             extrapolated = richardson(r.products, market, settings, n, source)
             if extrapolated is not None:
