@@ -209,13 +209,14 @@ def price_run(products: list[Product], market: Market, settings: Settings, *,
         if richardson_steps:
             extrapolated = richardson(r.products, market, settings, n, source)
             if extrapolated is not None:
+                label = sim.stepper.describe_steps(settings.steps_per_day)
                 out = [with_richardson(res, *x, settings.steps_per_day,
-                                       time.perf_counter() - t_start)
+                                       time.perf_counter() - t_start, label)
                        for res, x in zip(out, extrapolated, strict=True)]
                 return out
         out = [dataclasses.replace(res, notes=(
             *res.notes, f"discretisation: the error bar is the sampling error alone; the "
-            f"log-Euler steps ({per_day(settings.steps_per_day)}) add a bias of the order of "
+            f"{sim.stepper.describe_steps(settings.steps_per_day)} add a bias of the order of "
             "the step, not in it; --richardson removes it to first order and measures it, in "
             "about four times the time"))
             for res in out]
@@ -228,14 +229,15 @@ def per_day(steps_per_day: int) -> str:
 
 
 def with_richardson(res: PriceResult, value: float, se: float, quant: float, bias: float,
-                    bias_se: float, steps_per_day: int, seconds: float) -> PriceResult:
+                    bias_se: float, steps_per_day: int, seconds: float,
+                    steps: str | None = None) -> PriceResult:
     """The result with its price replaced by the Richardson extrapolation of the steps (no
     control variates), its error bar from the spread of the extrapolated values, and the
     measured bias of the plain run said in a note and under ``discretisation_bias``."""
-    plain = per_day(steps_per_day)
-    note = (f"discretisation removed to first order (Richardson: 2 x the price at "
-            f"{2 * steps_per_day} steps a day - the price at {plain}, on the same Brownian "
-            f"paths, no control variates): the plain price at {plain} was "
+    plain = steps or per_day(steps_per_day)
+    note = (f"discretisation removed to first order (Richardson: 2 x the price on steps half "
+            f"as long - the price on the {plain}, on the same Brownian "
+            f"paths, no control variates): the plain price on the {plain} was "
             f"{res.price:.6g}, and its steps' bias is measured at {bias:+.4g} (stderr "
             f"{bias_se:.2g})")
     extras = {**res.extras, "discretisation_bias": {

@@ -26,6 +26,7 @@ from fairpath.errors import InputError
 from fairpath.inputs import MAX_AMOUNT, Table, did_you_mean, read_toml, show
 from fairpath.laws import NORMAL, Law, parse_law
 from fairpath.registry import known_models
+from fairpath.stochvol import HestonParams, parse_heston
 from fairpath.surface import VolSurface, parse_surface
 
 #: Tolerance on the smallest eigenvalue of a correlation matrix (rounding in hand-typed files).
@@ -33,6 +34,9 @@ PSD_TOLERANCE = 1e-10
 #: Largest absolute rate or dividend yield a market file may give (100%, continuously
 #: compounded): a larger one is a percentage typed as a number.
 MAX_RATE = 1.0
+#: Where an asset given by its Heston parameters alone gets its Black term structure (the root
+#: of the mean expected variance; Brownian-bridge corrections and tail checks read it)
+HESTON_VOL_TIMES = (0.25, 0.5, 1.0, 2.0, 3.0, 5.0, 10.0, 30.0)
 
 
 # ---------------------------------------------------------------------------------------------
@@ -189,6 +193,13 @@ class Asset:
     #: the model of its dynamics named by the file or a what-if (:mod:`fairpath.models`);
     #: None: the default (local vol with a surface, Black otherwise)
     model: str | None = None
+    #: the variance process of the heston and lsv models (:mod:`fairpath.stochvol`), None
+    #: when the file gives none (or asks for it to be fitted: ``heston_calibrate``)
+    heston: HestonParams | None = None
+    #: ``calibrate = true`` in the heston block: fitted to the surface when the market loads
+    heston_calibrate: bool = False
+    #: lsv: the share of the vol of vol kept (None: not given)
+    mixing: float | None = None
 
     def __post_init__(self):
         divs = tuple(sorted((d, float(x)) for d, x in self.dividends))
@@ -440,6 +451,8 @@ def load_market(path: str | Path) -> Market:
                                    "blank, without leading or trailing spaces")
         a = assets_tab.table(name)
         spot = a.number("spot", positive=True, limit=MAX_AMOUNT)
+        heston, calibrate, mixing = (parse_heston(a.table("heston")) if a.has("heston")
+                                     else (None, False, None))
         surface = None
         if a.has("vol_surface"):
             if a.has("vol") or a.has("vol_tenors") or a.has("vols"):
@@ -463,8 +476,14 @@ def load_market(path: str | Path) -> Market:
                     raise a.error(f"vols[{i}]", "total variance vol^2 * t decreases between "
                                   f"tenors {i - 1} and {i} (negative forward variance)")
             vol = VolCurve(tuple(times), tuple(vols), tuple(str(x) for x in a.list("vol_tenors")))
+        elif heston is not None:  # Heston alone: the vol is its mean expected variance's root
+            vol = VolCurve(HESTON_VOL_TIMES, heston.term_vols(HESTON_VOL_TIMES))
         else:
-            raise a.error("vol", "missing required key (or 'vol_tenors' + 'vols')")
+            raise a.error("vol", "missing required key (or 'vol_tenors' + 'vols'"
+                          + (", or the heston block's five parameters)" if calibrate else ")"))
+        if calibrate and surface is None:
+            raise a.error("heston", "calibrate = true fits the Heston parameters to the "
+                          "asset's vol_surface, and it has none")
         q = _rate(a, "dividend_yield", a.raw("dividend_yield", 0.0))
         law = NORMAL
         if a.has("law"):
@@ -478,7 +497,14 @@ def load_market(path: str | Path) -> Market:
         if surface is not None and not law.is_normal:
             raise a.error("law", "a non-normal law and a volatility surface cannot be combined "
                           "(local volatility steps with normal shocks)")
-        asset = Asset(name, spot, vol, q, law, dividends=dividends, model=model)
+        if model in ("heston", "lsv") and heston is None and not calibrate:
+            raise a.error("model", f"the {model} model needs its variance process: give "
+                          f"[assets.{name}.heston] (v0, kappa, theta, vol_of_vol, "
+                          "spot_vol_correlation, or calibrate = true)")
+        if mixing is not None and model != "lsv":
+            raise a.error("heston.mixing", "mixing applies to model = \"lsv\" only")
+        asset = Asset(name, spot, vol, q, law, dividends=dividends, model=model,
+                      heston=heston, heston_calibrate=calibrate, mixing=mixing)
         if surface is not None:
             asset = attach_surface(asset, surface, curve, source=src, key=a.key("vol_surface"))
         assets.append(asset)

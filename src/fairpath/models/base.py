@@ -141,6 +141,10 @@ class Stepper:
     #: can remove that error to first order on a finer grid (:func:`fairpath.engine.richardson`)
     discretised: bool = False
 
+    def describe_steps(self, steps_per_day: int) -> str:
+        """The discretised steps, in a note (``"log-Euler steps (a day)"``)."""
+        return f"log-Euler steps ({'a day' if steps_per_day == 1 else f'{steps_per_day} a day'})"
+
     def simulate(self, z: np.ndarray) -> PathState:
         """Paths from the normals ``z`` (paths, factors, sim steps), which it may overwrite
         unless it declares :attr:`keeps_normals`."""
