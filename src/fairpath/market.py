@@ -544,6 +544,10 @@ def load_market(path: str | Path) -> Market:
                              f"today, not less than the spot {a.spot:g}: a dividend larger than "
                              "the level it applies to", source=src,
                              key=f"assets.{a.name}.dividends")
+    if any(a.heston_calibrate for a in market.assets):
+        from fairpath.calibration import calibrate_on_load  # a local import: no cycle
+
+        market = calibrate_on_load(market)
     return market
 
 
