@@ -191,6 +191,10 @@ def build_parser() -> argparse.ArgumentParser:
     c.add_argument("--report", default=None, help="write a self-contained HTML report here")
     _add_mc_options(c)
     _add_law_options(c, compare=True)
+    c.add_argument("--models", default=None, metavar="A,B,...",
+                   help="also price each quote under each of these models (every asset's "
+                        "model replaced, same random numbers) and widen the band to cover "
+                        f"each one's price +- 3 stderr; known: {', '.join(known_models())}")
     c.add_argument("--json", action="store_true", help="print a JSON list")
 
     s = sub.add_parser("solve", help="the value of a product key that makes the price a target")
@@ -296,17 +300,18 @@ def _emit(res, as_json: bool) -> int:
 
 
 def _check(args) -> int:
-    from fairpath.quotes import check_quotes, check_report_path, write_report
+    from fairpath.quotes import check_quotes, check_report_path, model_list, write_report
     from fairpath.sampling import normalize_seed
 
     if args.report:
         check_report_path(args.report)  # refuse an unwritable report before any pricing
+    models = model_list(args.models)  # a bad list refused before any work
     market = _market(args)
     other = _law(args, args.compare_law, "--compare-law")
     checks = check_quotes(args.quotes, market, vol_band=args.vol_band, paths=args.paths,
                           sampler=args.sampler, seed=args.seed, compare_law=other,
                           progress=not args.json and sys.stderr.isatty(),
-                          steps_per_day=args.steps_per_day)
+                          steps_per_day=args.steps_per_day, models=models or None)
     if args.report:
         write_report(args.report, checks, market,
                      {"quotes": args.quotes, "market": args.market, "paths": args.paths,
@@ -341,6 +346,13 @@ def _check(args) -> int:
         if c.other_price is not None:
             print(f"{'':<34} under the {c.other_law} law: {c.other_price:.4f} "
                   f"(stderr {c.other_stderr:.4f}, {c.other_price - c.price:+.4f})")
+        if c.models:
+            print(f"{'':<34} vol band [{c.vol_low:.4f}, {c.vol_high:.4f}]   model band "
+                  f"[{c.model_low:.4f}, {c.model_high:.4f}]"
+                  + (f"   tolerance {c.tolerance:g}" if c.tolerance else ""))
+            for k, p, e in c.models:
+                print(f"{'':<34}   under {k:<10} {p:>11.4f} (stderr {e:.4f}, "
+                      f"{p - c.price:+.4f})")
     if args.report:
         print(f"\nreport written to {args.report}")
     print(f"\n{estimate.CAUTION}")

@@ -42,8 +42,8 @@ from fairpath.errors import FairpathError, InputError
 from fairpath.estimate import CAUTION, DEFAULT_PATHS, price
 from fairpath.inputs import read_csv_table
 from fairpath.laws import Law
-from fairpath.market import Market, VolCurve
-from fairpath.models import ModelSet
+from fairpath.market import Market, VolCurve, check_model_kind
+from fairpath.models import ModelSet, default_kind, model_of
 from fairpath.products.base import Product
 from fairpath.products.loader import load_product
 from fairpath.sampling import normalize_seed
@@ -81,6 +81,22 @@ class QuoteCheck:
     other_stderr: float | None = None
     #: with a volatility surface: the price with its at-the-money term structure instead
     flat_vol_price: float | None = None
+    #: the band's parts: the vol move's prices +- 3 standard errors (``vol_low``, ``vol_high``),
+    #: the compared models' prices, each +- 3 of its standard errors (``model_low``,
+    #: ``model_high``, None without ``models``), and the row's tolerance; ``low``/``high`` are
+    #: the widest of the parts, then the tolerance outside them
+    vol_low: float | None = None
+    vol_high: float | None = None
+    model_low: float | None = None
+    model_high: float | None = None
+    tolerance: float = 0.0
+    #: ``(model kind, price, stderr)`` for each compared model, in the order asked
+    models: tuple[tuple[str, float, float], ...] = ()
+
+    @property
+    def model_prices(self) -> dict[str, dict[str, float]]:
+        """``{kind: {"price": .., "stderr": ..}}`` for each compared model (empty without)."""
+        return {k: {"price": p, "stderr": s} for k, p, s in self.models}
 
     def to_dict(self) -> dict:
         d = {k: getattr(self, k) for k in ("product", "quote", "price", "stderr", "low", "high",
@@ -88,6 +104,14 @@ class QuoteCheck:
         d.update(implied_vol_note=self.implied_vol_note, coupon=self.coupon,
                  fair_coupon=self.fair_coupon, name=self.name, status=self.status,
                  message=self.message)
+        if self.status == "ok":
+            d["band_parts"] = {
+                "vol_move": [self.vol_low, self.vol_high],
+                "models": (None if self.model_low is None
+                           else [self.model_low, self.model_high]),
+                "tolerance": self.tolerance, "stderrs": BAND_STDERRS}
+        if self.models:
+            d["model_prices"] = self.model_prices
         if self.other_law is not None:
             d.update(other_law=self.other_law, other_price=self.other_price,
                      other_stderr=self.other_stderr)
@@ -212,15 +236,68 @@ def _extremum_brackets(f, grid: list[float], fs: list[float]) -> list[tuple[floa
     return [(a, x), (x, b)]
 
 
+def model_list(models, *, key: str = "--models") -> tuple[str, ...]:
+    """The model kinds of a comparison, in the order given, each once.
+
+    ``models`` is a comma-separated string (``"local-vol,heston"``, as ``--models`` takes it) or
+    a sequence of kinds; None or an empty sequence: no comparison. An empty string, an empty
+    name in the list or a kind no model registered raises :class:`InputError` naming ``key``
+    (an unknown kind lists the known ones).
+
+    >>> model_list("black, local-vol,black")
+    ('black', 'local-vol')
+    """
+    from fairpath.registry import known_models
+
+    if models is None:
+        return ()
+    if isinstance(models, str):
+        items = [m.strip() for m in models.split(",")]
+        if not any(items):
+            raise InputError(f"an empty list of models; known: {', '.join(known_models())}",
+                             key=key)
+    else:
+        items = list(models)
+    for m in items:
+        if isinstance(m, str) and not m.strip():
+            raise InputError(f"an empty name in the list of models {models!r}; known: "
+                             f"{', '.join(known_models())}", key=key)
+        check_model_kind(m, key=key)
+    return tuple(dict.fromkeys(items))
+
+
+def under_model(market: Market, names, kind: str, *, where: str | None = None) -> Market:
+    """The market with every asset's model replaced by ``kind`` (a what-if), after checking
+    that the model applies to each of the named assets (those a product uses): an
+    :class:`InputError` naming ``where`` (the quote's row), ``--models``, the model and the
+    asset otherwise."""
+    alt = market.with_model(kind, key="--models")
+    for n in names:
+        try:
+            model_of(alt, n)
+        except InputError as exc:
+            raise InputError(f"the {kind} model cannot apply to {n}: {exc.problem}",
+                             source=where, key="--models") from None
+    return alt
+
+
 def check_quote(product: Product, market: Market, quote: float, *, vol_band: float = 0.01,
                 tolerance: float = 0.0, paths: int = DEFAULT_PATHS, sampler: str = "sobol",
                 seed: int | None = None, implied: bool = True, label: str = "",
                 source: str | None = None, compare_law: Law | None = None,
-                steps_per_day: int = 1) -> QuoteCheck:
+                steps_per_day: int = 1, models=None) -> QuoteCheck:
     """Check one quote (see the module notes).
 
     ``compare_law``: also price the product with this shock law for every asset it uses (same
     random numbers), to show how much of the value is the law of returns.
+
+    ``models``: model kinds (``("local-vol", "heston")`` or ``"local-vol,heston"``) under which
+    the product is also priced, the market's every asset given that model
+    (:meth:`Market.with_model`), with the same seed and settings (so the same random numbers
+    where the models draw the same factors). Each model's price and standard error are
+    reported (``model_prices``), and the band is widened to cover every one of them +- 3 of
+    its standard errors. A model that is the market's own for every asset the product uses
+    is not priced again: its price is the fair value's.
 
     Examples
     --------
@@ -237,6 +314,9 @@ def check_quote(product: Product, market: Market, quote: float, *, vol_band: flo
     settings = dict(paths=paths, sampler=sampler, seed=seed, source=source,
                     steps_per_day=steps_per_day)
     names = product.underlyings()
+    kinds = model_list(models)
+    alts = {k: under_model(market, names, k, where=label or source) for k in kinds
+            if not all((market.asset(n).model or default_kind(market, n)) == k for n in names)}
     base = price(product, market, **settings)
     prices = [base.price]
     if vol_band > 0:
@@ -244,8 +324,16 @@ def check_quote(product: Product, market: Market, quote: float, *, vol_band: flo
             prices.append(price(product, _with_vols(market, names, shift=shift),
                                 **settings).price)
     se = base.stderr
-    low = min(prices) - BAND_STDERRS * se - tolerance
-    high = max(prices) + BAND_STDERRS * se + tolerance
+    vol_low = min(prices) - BAND_STDERRS * se
+    vol_high = max(prices) + BAND_STDERRS * se
+    compared = []
+    for k in kinds:
+        res = price(product, alts[k], **settings) if k in alts else base
+        compared.append((k, res.price, res.stderr))
+    model_low = min((p - BAND_STDERRS * s for _, p, s in compared), default=None)
+    model_high = max((p + BAND_STDERRS * s for _, p, s in compared), default=None)
+    low = min(vol_low, vol_low if model_low is None else model_low) - tolerance
+    high = max(vol_high, vol_high if model_high is None else model_high) + tolerance
     diff = quote - base.price
     z = diff / se if se > 0 else (0.0 if diff == 0 else math.copysign(math.inf, diff))
     verdict = "rich" if quote > high else "cheap" if quote < low else "fair"
@@ -270,7 +358,9 @@ def check_quote(product: Product, market: Market, quote: float, *, vol_band: flo
                      other_stderr=alt.stderr)
     return QuoteCheck(label or product.label(), quote, base.price, se, low, high, diff,
                       z if math.isfinite(z) else None, verdict, iv, note, coupon, fair,
-                      product.label(), **other)
+                      product.label(), **other, vol_low=vol_low, vol_high=vol_high,
+                      model_low=model_low, model_high=model_high, tolerance=tolerance,
+                      models=tuple(compared))
 
 
 def read_quotes(path: str | Path) -> list[dict]:
@@ -307,13 +397,22 @@ def check_quotes(quotes_csv: str | Path, market: Market, *, vol_band: float = 0.
     that renders as a table in a notebook and has ``.plot()``. ``progress`` shows a progress
     bar over the rows (tqdm; notebook-aware). Other keyword arguments go to
     :func:`check_quote`.
+
+    With ``models``, every row's product is first checked against every listed model before
+    anything is priced: a model that cannot apply to an asset a row uses raises
+    :class:`InputError` naming the row, the product and the model (nothing is priced).
     """
     rows = _read_rows(quotes_csv)
     base = Path(quotes_csv).parent
+    kinds = model_list(settings.get("models"))
+    if kinds:
+        settings["models"] = kinds
+        _check_models(rows, quotes_csv, base, market, kinds)
     out = QuoteChecks(settings={
         "paths": settings.get("paths", DEFAULT_PATHS),
         "sampler": settings.get("sampler", "sobol"),
-        "seed": normalize_seed(settings.get("seed")), "vol band": vol_band})
+        "seed": normalize_seed(settings.get("seed")), "vol band": vol_band,
+        **({"models": ", ".join(kinds)} if kinds else {})})
     bar = None
     if progress and rows:
         from tqdm.auto import tqdm
@@ -329,6 +428,23 @@ def check_quotes(quotes_csv: str | Path, market: Market, *, vol_band: float = 0.
         if bar is not None:
             bar.close()
     return out
+
+
+def _check_models(rows, quotes_csv, base: Path, market: Market, kinds: tuple[str, ...]
+                  ) -> None:
+    """Refuse, before any pricing, a compared model that cannot apply to an asset of a row's
+    product (a row whose product does not load is left to be reported in its row)."""
+    for line, row in rows:
+        prod = (row.get("product") or "").strip()
+        if not prod:
+            continue
+        try:
+            product = load_product(base / prod)
+        except (InputError, FairpathError, ValueError):
+            continue
+        for k in kinds:
+            under_model(market, product.underlyings(), k,
+                        where=f"{quotes_csv} line {line} ({prod})")
 
 
 def _check_row(row: dict, where: str, base: Path, market: Market, vol_band: float,
@@ -364,8 +480,11 @@ def _table_html(checks: list[QuoteCheck], attrs: str = "") -> str:
     """The verdicts as an HTML table (the report's and the notebook's)."""
     alt = next((c.other_law for c in checks if c.other_law is not None), None)
     smile = any(c.flat_vol_price is not None for c in checks)
-    head = ("product", "quote", "price", "stderr", "low", "high", "difference", "z",
-            "verdict", "implied vol", "coupon / fair coupon",
+    compared = any(c.models for c in checks)
+    head = ("product", "quote", "price", "stderr", "low", "high",
+            *(("vol band", "model band", "price under each model (stderr)") if compared
+              else ()),
+            "difference", "z", "verdict", "implied vol", "coupon / fair coupon",
             *((f"price under the {alt} law",) if alt else ()),
             *(("price with at-the-money vols (no smile)",) if smile else ()), "note")
     body = []
@@ -378,15 +497,24 @@ def _table_html(checks: list[QuoteCheck], attrs: str = "") -> str:
         cpn = "" if c.coupon is None else f"{c.coupon:.4%} / {_fmt(c.fair_coupon, '.4%')}"
         law_col = (f"{_fmt(c.other_price)} ({_fmt(c.other_stderr, '.3g')})",) if alt else ()
         flat_col = (_fmt(c.flat_vol_price),) if smile else ()
+        model_cols = ((_interval(c.vol_low, c.vol_high), _interval(c.model_low, c.model_high),
+                       "; ".join(f"{k} {_fmt(p)} ({_fmt(e, '.3g')})" for k, p, e in c.models))
+                      if compared else ())
         cells = (c.product, _fmt(c.quote), _fmt(c.price), _fmt(c.stderr, ".3g"), _fmt(c.low),
-                 _fmt(c.high), _fmt(c.difference, ".4g"), _fmt(c.z, ".2f"), c.verdict,
-                 _fmt(c.implied_vol, ".4%"), cpn, *law_col, *flat_col, c.implied_vol_note)
+                 _fmt(c.high), *model_cols, _fmt(c.difference, ".4g"), _fmt(c.z, ".2f"),
+                 c.verdict, _fmt(c.implied_vol, ".4%"), cpn, *law_col, *flat_col,
+                 c.implied_vol_note)
+        at = head.index("verdict")
         style = f" style='color:{COLOURS[c.verdict]}'"
         body.append("<tr>" + "".join(
-            f"<td{style if i == 8 else ''}>{html.escape(str(v))}</td>"
+            f"<td{style if i == at else ''}>{html.escape(str(v))}</td>"
             for i, v in enumerate(cells)) + "</tr>")
     header = "".join(f"<th>{html.escape(h)}</th>" for h in head)
     return f"<table{attrs}><tr>{header}</tr>{''.join(body)}</table>"
+
+
+def _interval(lo, hi) -> str:
+    return "" if lo is None else f"[{_fmt(lo)}, {_fmt(hi)}]"
 
 
 def _caution_html() -> str:
@@ -453,7 +581,8 @@ class QuoteChecks(list):
         skipped = len(self) - len(ok)
         ax.set_title("Quotes against their bands"
                      + (f" ({skipped} row(s) with errors not shown)" if skipped else ""))
-        handles = [Patch(color="#d9d9d9", label="band (vol +- band, +- 3 stderr)"),
+        models = ", every model" if any(c.models for c in ok) else ""
+        handles = [Patch(color="#d9d9d9", label=f"band (vol +- band{models}, +- 3 stderr)"),
                    Line2D([], [], color="#444", linewidth=2, label="fair value")]
         handles += [Line2D([], [], marker="o", linestyle="", color=col, label=f"quote: {v}")
                     for v, col in COLOURS.items()]
@@ -471,7 +600,8 @@ def _svg_chart(checks: list[QuoteCheck]) -> str:
     if not ok:
         return "<p>No priced quotes to chart.</p>"
     row_h, width, left = 34, 760, 260
-    height = row_h * len(ok) + 40
+    models = any(c.model_low is not None for c in ok)
+    height = row_h * len(ok) + (56 if models else 40)
     parts = [f'<svg xmlns="http://www.w3.org/2000/svg" width="{width}" height="{height}" '
              'role="img" aria-label="quotes against their fair-value bands" '
              'font-family="sans-serif" font-size="12">']
@@ -487,12 +617,21 @@ def _svg_chart(checks: list[QuoteCheck]) -> str:
         parts.append(f'<text x="4" y="{y + 15}">{html.escape(c.product[:38])}</text>')
         parts.append(f'<rect x="{x(c.low):.1f}" y="{y + 4}" width="{x(c.high) - x(c.low):.1f}" '
                      f'height="16" fill="#d9d9d9"/>')
+        if c.model_low is not None:  # the parts under the band: vol move, then models
+            for lo_, hi_, dy, dash in ((c.vol_low, c.vol_high, 24, ""),
+                                       (c.model_low, c.model_high, 28, ' stroke-dasharray="4 2"')):
+                parts.append(f'<line x1="{x(lo_):.1f}" x2="{x(hi_):.1f}" y1="{y + dy}" '
+                             f'y2="{y + dy}" stroke="#555" stroke-width="2"{dash}/>')
         parts.append(f'<line x1="{x(c.price):.1f}" x2="{x(c.price):.1f}" y1="{y + 2}" '
                      f'y2="{y + 22}" stroke="#444" stroke-width="2"/>')
         parts.append(f'<circle cx="{x(c.quote):.1f}" cy="{y + 12}" r="6" fill="{colour}"/>')
         parts.append(f'<text x="{width - 16}" y="{y + 15}" text-anchor="end" '
                      f'fill="{colour}">{c.verdict}</text>')
-    parts.append(f'<text x="{left}" y="{height - 6}">grey: band (vol +- band, +- 3 stderr); '
+    if models:
+        parts.append(f'<text x="{left}" y="{height - 22}">under the grey band: the vol band '
+                     '(solid) and the model band (dashed)</text>')
+    parts.append(f'<text x="{left}" y="{height - 6}">grey: band (vol +- band'
+                 + (", every model" if models else "") + ', +- 3 stderr); '
                  'black line: fair value; dot: quote</text></svg>')
     return "".join(parts)
 
