@@ -27,6 +27,7 @@ from scipy.stats import norm
 import fairpath as fp
 from clitools import assert_bad_input, run
 from fairpath.cli import build_parser, main
+from fairpath.registry import known_models
 
 ROOT = Path(__file__).resolve().parents[1]
 SMILE = ROOT / "markets" / "demo_smile.toml"
@@ -265,3 +266,32 @@ def test_every_pricing_command_takes_a_model_what_if(command):
     assert args.model == "local-vol"
     with pytest.raises(SystemExit), contextlib.redirect_stderr(io.StringIO()):
         build_parser().parse_args([*head, "--market", "m.toml", "--model", "nope"])
+
+
+needs_heston = pytest.mark.skipif("heston" not in known_models(),
+                                  reason="the heston model is not registered")
+
+
+@needs_heston
+def test_heston_joins_the_band(smile_batch):
+    """--models black,local-vol,heston on the demo smile (Heston fitted to each surface when
+    the market gives no parameters): the band holds every model's price +- 3 stderr, and the
+    two other models' prices are those of the black,local-vol run (same seed and settings)."""
+    folder, two, _ = smile_batch
+    rows = _check_json(folder / "quotes.csv", SMILE, "--models", BOTH + ",heston")
+    for row, before in zip(rows, two, strict=True):
+        mp = row["model_prices"]
+        assert list(mp) == ["black", "local-vol", "heston"]
+        for kind, got in mp.items():
+            assert row["low"] <= got["price"] - SE * got["stderr"], (kind, row)
+            assert row["high"] >= got["price"] + SE * got["stderr"], (kind, row)
+        for kind in ("black", "local-vol"):
+            assert mp[kind] == before["model_prices"][kind]
+
+
+@needs_heston
+def test_heston_without_parameters_or_surface_is_refused(tmp_path, capsys):
+    csv = _quotes(tmp_path, [(CALL, 7.9, "")])
+    code, out, err = run(["check", csv, "--market", NO_SURFACE, "--paths", 1024, "--models",
+                          "heston"], capsys)
+    assert_bad_input(code, out, err, f"{csv} line 2", "--models", "heston", "NORDA")
