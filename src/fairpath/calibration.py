@@ -51,12 +51,18 @@ The at-the-money call over the discounted forward, against the adaptive quadratu
 from __future__ import annotations
 
 import dataclasses
+import json
 import math
+import os
+import re
+import tempfile
 import threading
 import time
+import tomllib
 from collections.abc import Sequence
 from dataclasses import dataclass
 from functools import lru_cache
+from pathlib import Path
 
 import numpy as np
 from scipy import optimize
@@ -430,19 +436,27 @@ def fit_heston(market, name: str, *, weights: str = "vega",
     market_calls = _otm_black(y, sd) + np.where(y >= 0, 0.0, 1.0 - np.exp(y))
     vega = np.maximum(_black_vega_sd(y, sd) * np.sqrt(T), VEGA_FLOOR)  # d price / d vol
     count = [0]
+    seen = [math.inf, None]  # the lowest cost evaluated and where: how far a failed fit got
 
     def residuals(x):
         count[0] += 1
         c = smile.model_calls(x)
         if weights == "vega":
-            return (c - market_calls) / vega
-        iv = implied_vols(c, y, T, guess=vols)
-        # where the model's price has no implied vol (outside the bounds), its vega-weighted
-        # price error stands in
-        return np.where(np.isfinite(iv), iv - vols, (c - market_calls) / vega)
+            r = (c - market_calls) / vega
+        else:
+            iv = implied_vols(c, y, T, guess=vols)
+            # where the model's price has no implied vol (outside the bounds), its
+            # vega-weighted price error stands in
+            r = np.where(np.isfinite(iv), iv - vols, (c - market_calls) / vega)
+        # parameters so extreme that the pricer overflows: a large error (1000 vol points)
+        r = np.where(np.isfinite(r), r, 10.0)
+        cost = float(r @ r)
+        if cost < seen[0]:
+            seen[0], seen[1] = cost, tuple(x)
+        return r
 
     t0 = time.perf_counter()
-    best, best_any = None, None
+    best = None
     for x0 in trials:
         start_count = count[0]
 
@@ -455,18 +469,15 @@ def fit_heston(market, name: str, *, weights: str = "vega",
             res = optimize.least_squares(limited, _clip_start(x0), bounds=(LOWER, UPPER),
                                          method="trf", x_scale="jac", ftol=FIT_TOL,
                                          xtol=FIT_TOL, gtol=FIT_TOL, max_nfev=10_000)
-            point = (float(res.cost), tuple(res.x), res.status > 0, str(res.message))
         except _Budget:
             continue
-        if best_any is None or point[0] < best_any[0]:
-            best_any = point
-        if point[2] and (best is None or point[0] < best[0]):
-            best = point
+        if res.status > 0 and (best is None or res.cost < best[0]):
+            best = (float(res.cost), tuple(res.x), str(res.message))
     seconds = time.perf_counter() - t0
     evaluations = count[0]
     if best is None:
-        how = ("" if best_any is None else
-               f"; best RMSE {_rmse(smile, best_any[1]):.2f} vol points")
+        how = ("" if seen[1] is None else
+               f"; best RMSE reached {_rmse(smile, seen[1]):.2f} vol points")
         raise InputError(f"the Heston fit did not converge from any of {len(trials)} starts "
                          f"({evaluations} evaluations{how})", source=market.source, key=key)
     x = _round_params(best[1])
@@ -485,7 +496,7 @@ def fit_heston(market, name: str, *, weights: str = "vega",
             rows.append(FitQuote(name_t, k, float(v), float(model_vols[i])))
             i += 1
     params = HestonParams(*x, calibrated=True)
-    return HestonFit(name, params, rmse, tuple(rows), evaluations, best[3], weights,
+    return HestonFit(name, params, rmse, tuple(rows), evaluations, best[2], weights,
                      len(trials), seconds)
 
 
@@ -562,3 +573,254 @@ def calibrate_on_load(market):
             a = dataclasses.replace(a, heston=fitted(market, a.name).params)
         assets.append(a)
     return dataclasses.replace(market, assets=tuple(assets))
+
+
+# ---------------------------------------------------------------------------------------------
+# Writing a fitted market file
+# ---------------------------------------------------------------------------------------------
+#: The comment line written above the fitted numbers (replaced on the next write).
+FITTED_MARK = "# fitted by fairpath calibrate"
+_BARE = re.compile(r"[A-Za-z0-9_-]+")
+
+
+@dataclass
+class _Statement:
+    """A line-level view of a TOML file: a table header or a key/value statement."""
+
+    kind: str  # "header" or "value"
+    keys: tuple[str, ...] | None  # the header's table path, or the value's dotted key
+    first: int  # its first and last line (a value may span lines: multi-line arrays)
+    last: int
+
+
+def _parse_keys(text: str) -> tuple[str, ...] | None:
+    """A dotted key (``assets."NORDA".heston``) as a tuple, or None if it is not one."""
+    keys, i, n = [], 0, len(text)
+    while True:
+        while i < n and text[i] in " \t":
+            i += 1
+        if i < n and text[i] in "\"'":
+            q = text[i]
+            j = text.find(q, i + 1)
+            while q == '"' and j > 0 and text[j - 1] == "\\":
+                j = text.find(q, j + 1)
+            if j < 0:
+                return None
+            try:
+                keys.append(json.loads(text[i:j + 1]) if q == '"' else text[i + 1:j])
+            except ValueError:
+                return None
+            i = j + 1
+        else:
+            m = _BARE.match(text, i)
+            if m is None:
+                return None
+            keys.append(m.group())
+            i = m.end()
+        while i < n and text[i] in " \t":
+            i += 1
+        if i == n:
+            return tuple(keys)
+        if text[i] != ".":
+            return None
+        i += 1
+
+
+def _statements(lines: list[str]) -> list[_Statement]:
+    """Headers and key/value statements of a TOML text, with the lines each spans (brackets
+    and braces counted outside strings and comments, multi-line strings skipped)."""
+    out: list[_Statement] = []
+    depth, ml, current = 0, None, None
+    for n, line in enumerate(lines):
+        i = 0
+        if depth == 0 and ml is None:
+            stripped = line.strip()
+            if not stripped or stripped.startswith("#"):
+                continue
+            if stripped.startswith("["):
+                double = stripped.startswith("[[")
+                close = stripped.find("]]" if double else "]")
+                keys = _parse_keys(stripped[2 if double else 1:close]) if close > 0 else None
+                out.append(_Statement("header", keys, n, n))
+                continue
+            eq = _find_equals(line)
+            keys = _parse_keys(line[:eq]) if eq >= 0 else None
+            current = _Statement("value", keys, n, n)
+            out.append(current)
+            i = eq + 1 if eq >= 0 else len(line)
+        # scan the value's characters for brackets, strings and comments
+        while i < len(line):
+            if ml is not None:
+                j = line.find(ml, i)
+                if j < 0:
+                    i = len(line)
+                    break
+                ml, i = None, j + 3
+                continue
+            ch = line[i]
+            if line.startswith('"""', i) or line.startswith("'''", i):
+                ml, i = line[i:i + 3], i + 3
+                continue
+            if ch in "\"'":
+                j = i + 1
+                while j < len(line) and line[j] != ch:
+                    j += 2 if ch == '"' and line[j] == "\\" else 1
+                i = j + 1
+                continue
+            if ch == "#":
+                break
+            if ch in "[{":
+                depth += 1
+            elif ch in "]}":
+                depth -= 1
+            i += 1
+        if current is not None:
+            current.last = n
+    return out
+
+
+def _find_equals(line: str) -> int:
+    """The position of a statement's ``=`` (outside a quoted key), or -1."""
+    i, q = 0, None
+    while i < len(line):
+        ch = line[i]
+        if q:
+            if ch == q:
+                q = None
+        elif ch in "\"'":
+            q = ch
+        elif ch == "=":
+            return i
+        i += 1
+    return -1
+
+
+def _toml_key(name: str) -> str:
+    return name if _BARE.fullmatch(name) else json.dumps(name)
+
+
+def _fitted_lines(fit: HestonFit) -> list[str]:
+    p = fit.params
+    return [f"{FITTED_MARK}: RMSE {fit.rmse_vol_points:.3f} vol points, Feller ratio "
+            f"{fit.feller:.3g}"] + [f"{k} = {getattr(p, k)!r}" for k in HESTON_KEYS]
+
+
+def fitted_text(text: str, fits: dict[str, HestonFit], *, source: str | None = None) -> str:
+    """The market file's ``text`` with each fitted asset's Heston parameters written in: its
+    ``[assets.NAME.heston]`` table's ``calibrate = true`` (or older numbers) replaced by the
+    five numbers, everything else kept (comments, ``mixing``); a table added after the asset's
+    own tables when it has none; an inline ``heston = {...}`` rewritten inline."""
+    lines = text.splitlines()
+    for name, fit in fits.items():
+        stmts = _statements(lines)
+        headers = [s for s in stmts if s.kind == "header"]
+        where = "assets." + _toml_key(name)
+
+        def block(keys, _stmts=stmts):
+            """The statements under header ``keys`` (the header first), or []."""
+            out, inside = [], False
+            for s in _stmts:
+                if s.kind == "header":
+                    inside = s.keys == keys
+                    if inside:
+                        out.append(s)
+                elif inside:
+                    out.append(s)
+            return out
+
+        own = block(("assets", name, "heston"))
+        body = block(("assets", name))
+        inline = [s for s in body[1:] if s.keys and s.keys[0] == "heston"]
+        new = _fitted_lines(fit)
+        if own:
+            drop = {n for s in own[1:] if s.keys and len(s.keys) == 1
+                    and s.keys[0] in (*HESTON_KEYS, "calibrate")
+                    for n in range(s.first, s.last + 1)}
+            head = own[0].first
+            end = next((s.first for s in headers if s.first > head), len(lines))
+            drop |= {n for n in range(head + 1, end)
+                     if lines[n].strip().startswith(FITTED_MARK)}
+            lines = ([*lines[:head + 1], *new]
+                     + [x for n, x in enumerate(lines) if n > head and n not in drop])
+        elif inline:
+            data = tomllib.loads("\n".join(lines))
+            extra = {k: v for k, v in data["assets"][name]["heston"].items()
+                     if k not in (*HESTON_KEYS, "calibrate")}
+            items = [f"{k} = {getattr(fit.params, k)!r}" for k in HESTON_KEYS]
+            items += [f"{_toml_key(k)} = {v!r}" for k, v in extra.items()
+                      if isinstance(v, int | float) and not isinstance(v, bool)]
+            if len(items) != len(HESTON_KEYS) + len(extra):
+                raise InputError("cannot rewrite this inline heston table; write it as an "
+                                 f"[{where}.heston] table", source=source, key=f"{where}.heston")
+            first = inline[0]
+            drop = {n for s in inline for n in range(s.first, s.last + 1)}
+            lines = [x if n != first.first else "heston = { " + ", ".join(items) + " }"
+                     for n, x in enumerate(lines) if n not in drop or n == first.first]
+        else:
+            mine = [s for s in headers if s.keys and s.keys[:2] == ("assets", name)]
+            if not mine:
+                raise InputError(f"cannot place the fitted parameters: the file defines {name} "
+                                 f"without an [{where}] table", source=source, key=where)
+            # after the asset's last table, before the blank and comment lines that lead
+            # into the next table
+            after = [s for s in headers if s.first > mine[-1].first]
+            end = after[0].first if after else len(lines)
+            while end > mine[-1].first + 1 and (not lines[end - 1].strip()
+                                                or lines[end - 1].lstrip().startswith("#")):
+                end -= 1
+            lines = [*lines[:end], "", f"[{where}.heston]", *new, *lines[end:]]
+    return "\n".join(lines) + "\n"
+
+
+def write_fitted(market_path: str | Path, out_path: str | Path,
+                 fits: dict[str, HestonFit]) -> None:
+    """Write the market file at ``market_path`` with the fitted Heston blocks to
+    ``out_path`` (:func:`fitted_text`), atomically: a temporary file beside the target is
+    written, loaded back (every fitted asset must read back the same five numbers), then
+    renamed over the target; on any error nothing is left behind."""
+    from fairpath.market import load_market
+
+    src, out = Path(market_path), Path(out_path)
+    try:
+        text = src.read_text(encoding="utf-8")
+    except OSError as exc:
+        raise InputError(f"cannot read: {exc.strerror or exc}", source=str(src)) from None
+    new = fitted_text(text, fits, source=str(src))
+    folder = out.parent if str(out.parent) else Path(".")
+    if not folder.is_dir():
+        raise InputError("no such folder to write the fitted market into", source=str(out))
+    try:
+        fd, tmp = tempfile.mkstemp(prefix=f".{out.stem}-", suffix=".toml", dir=folder)
+    except OSError as exc:
+        raise InputError(f"cannot write: {exc.strerror or exc}", source=str(out)) from None
+    tmp_path = Path(tmp)
+    try:
+        with os.fdopen(fd, "w", encoding="utf-8") as fh:
+            fh.write(new)
+            fh.flush()
+            os.fsync(fh.fileno())
+        try:
+            back = load_market(tmp_path)
+        except InputError as exc:
+            raise InputError(f"the fitted market would not load back: {exc.problem}",
+                             source=str(out), key=exc.key) from None
+        for name, fit in fits.items():
+            got = back.asset(name).heston
+            if got is None or got.numbers != fit.params.numbers:
+                raise InputError(f"the fitted market reads back {name}'s Heston parameters as "
+                                 f"{None if got is None else got.numbers}, not "
+                                 f"{fit.params.numbers}", source=str(out),
+                                 key=f"assets.{name}.heston")
+        if out.exists():
+            if not os.access(out, os.W_OK):
+                raise InputError("cannot write: the file is read-only", source=str(out))
+            mode = out.stat().st_mode & 0o777
+        else:  # a new file gets the ordinary permissions (mkstemp's are owner-only)
+            umask = os.umask(0)
+            os.umask(umask)
+            mode = 0o666 & ~umask
+        os.chmod(tmp_path, mode)
+        os.replace(tmp_path, out)
+    except BaseException:
+        tmp_path.unlink(missing_ok=True)
+        raise

@@ -1,4 +1,5 @@
-"""Command line: ``fairpath price | greeks | scenarios | check | solve | book | validate | demo``.
+"""Command line: ``fairpath price | greeks | scenarios | check | solve | book | validate |
+calibrate | demo``.
 
 Exit status: 0 on success, 2 on bad input (one line on stderr naming the file, the key and the
 problem), 1 on an internal error.
@@ -223,6 +224,16 @@ def build_parser() -> argparse.ArgumentParser:
     v = sub.add_parser("validate", help="Monte Carlo against the closed forms, with z-scores")
     v.add_argument("--json", action="store_true")
 
+    cal = sub.add_parser("calibrate", help="Heston parameters fitted to each asset's "
+                         "vol_surface, with the fit per quote")
+    cal.add_argument("market", help="market TOML file")
+    cal.add_argument("--asset", default=None, help="fit this asset only (default: every asset "
+                     "with a vol_surface)")
+    cal.add_argument("--write", default=None, metavar="FITTED.toml",
+                     help="write the market file with each fitted asset's [assets.NAME.heston] "
+                          "block holding the five numbers")
+    cal.add_argument("--json", action="store_true", help="print one JSON object")
+
     d = sub.add_parser("demo", help="price the example payoffs on the demo market")
     d.add_argument("--payoffs", default=None, help="folder of product files")
     d.add_argument("--market", default=None, help="market file")
@@ -251,6 +262,8 @@ def main(argv: list[str] | None = None) -> int:
             return _solve(args)
         if args.command == "validate":
             return _validate(args)
+        if args.command == "calibrate":
+            return _calibrate(args)
         if args.command == "book":
             return _book(args)
         if args.command == "demo":
@@ -429,6 +442,37 @@ def _validate(args) -> int:
     else:
         print(validate.table(results))
     return 0 if all(r.ok for r in results) else 1
+
+
+def _calibrate(args) -> int:
+    from fairpath.calibration import fitted, write_fitted
+
+    market = load_market(args.market)
+    if args.asset is not None:
+        a = market.asset(args.asset, source=market.source, key="--asset")
+        if a.surface is None:
+            raise InputError(f"{a.name} has no vol_surface to fit Heston's parameters to",
+                             source=market.source, key=f"assets.{a.name}.vol_surface")
+        names = [a.name]
+    else:
+        names = [a.name for a in market.assets if a.surface is not None]
+        if not names:
+            raise InputError("no asset has a vol_surface to fit Heston's parameters to",
+                             source=market.source, key="assets")
+    fits = {n: fitted(market, n) for n in names}
+    if args.write:
+        write_fitted(args.market, args.write, fits)
+    if args.json:
+        print(json.dumps({n: f.to_dict() for n, f in fits.items()}))
+        return 0
+    for i, f in enumerate(fits.values()):
+        print(("\n" if i else "") + f.table())
+    skipped = [a.name for a in market.assets if a.name not in fits]
+    if skipped and args.asset is None:
+        print(f"\nnot fitted (no vol_surface): {', '.join(skipped)}")
+    if args.write:
+        print(f"\nfitted market written to {args.write}")
+    return 0
 
 
 def demo_paths() -> tuple[Path, Path]:
