@@ -425,3 +425,46 @@ def local_vol_paths(z: np.ndarray, corr: np.ndarray, log_fwd: np.ndarray, lv_sd:
                      np.ascontiguousarray(log_x0, dtype=np.float64),
                      _active(active, n_a))
     return out
+
+
+#: paths built together by the Brownian-bridge kernel
+BRIDGE_TILE = 32
+
+
+@njit(cache=True, nogil=True)
+def _bridge_paths(zt, order, left, right, wl, wr, sd, sqrt_dt, out):
+    n, cols = zt.shape
+    k, fac = out.shape[0], out.shape[1]
+    w = np.empty((n + 1, BRIDGE_TILE))
+    for f in range(fac):
+        for p0 in range(0, k, BRIDGE_TILE):
+            m = min(BRIDGE_TILE, k - p0)
+            c0 = f * k + p0
+            for t in range(m):
+                w[0, t] = 0.0
+            for j in range(n):
+                i, lo, hi = order[j], left[j], right[j]
+                for t in range(m):
+                    val = zt[j, c0 + t] * sd[j]
+                    if lo:
+                        val = val + wl[j] * w[lo, t]
+                    if hi > 0:
+                        val = val + wr[j] * w[hi, t]
+                    w[i, t] = val
+            for t in range(m):
+                for s in range(n):
+                    out[p0 + t, f, s] = (w[s + 1, t] - w[s, t]) / sqrt_dt[s]
+
+
+def bridge_paths(zt: np.ndarray, order: np.ndarray, left: np.ndarray, right: np.ndarray,
+                 wl: np.ndarray, wr: np.ndarray, sd: np.ndarray, sqrt_dt: np.ndarray,
+                 factors: int) -> np.ndarray:
+    """Normals in Brownian-bridge construction order, time-major (``zt[j]``: construction
+    step ``j`` of every factor's paths, factor by factor), to each path's normalised step
+    increments, shape (paths, factors, steps): the bridge and the transposition in one pass,
+    a tile of paths at a time (the same arithmetic, in the same order, as building the
+    bridge row by row)."""
+    n, cols = zt.shape
+    out = np.empty((cols // factors, factors, n))
+    _bridge_paths(np.ascontiguousarray(zt), order, left, right, wl, wr, sd, sqrt_dt, out)
+    return out

@@ -28,7 +28,7 @@ import numpy as np
 
 from fairpath import sobol
 from fairpath.errors import InputError, SamplingWarning
-from fairpath.kernels import uniforms_to_normals
+from fairpath.kernels import bridge_paths, uniforms_to_normals
 
 #: Uniforms are clipped to [UNIFORM_CLIP, 1 - UNIFORM_CLIP] before the inverse CDF, so no
 #: normal is infinite (ndtri(1e-16) is about -8.2).
@@ -110,6 +110,7 @@ class BrownianBridge:
             queue = nxt
         assert built.all()
         self.dt = np.diff(tt)
+        self._arrays = None
 
     def _add(self, i, lo, hi, tt):
         self.order.append(i)
@@ -134,6 +135,16 @@ class BrownianBridge:
         m, a, n = z.shape
         rows = self.increments_rows(np.ascontiguousarray(z.transpose(2, 0, 1)).reshape(n, m * a))
         return np.ascontiguousarray(rows.reshape(n, m, a).transpose(1, 2, 0))
+
+    def paths(self, zt: np.ndarray, factors: int) -> np.ndarray:
+        """:meth:`increments_rows` and the transposition to (paths, factors, steps) in one
+        compiled pass (``zt[j]`` holds construction step ``j``, factor by factor)."""
+        if self._arrays is None:
+            self._arrays = (np.array(self.order, dtype=np.int64),
+                            np.array(self.left, dtype=np.int64),
+                            np.array(self.right, dtype=np.int64), np.array(self.wl),
+                            np.array(self.wr), np.array(self.sd), np.sqrt(self.dt))
+        return bridge_paths(zt, *self._arrays, factors)
 
     def increments_rows(self, zt: np.ndarray) -> np.ndarray:
         """The same on time-major rows: ``zt[j]`` holds construction step ``j`` for every path."""
@@ -361,7 +372,7 @@ class SobolSampler(Sampler):
         # comes before any asset's finer points)
         zt = to_normal(u).reshape(steps, n_assets * k)
         if steps > 1:
-            zt = self._bridge(times).increments_rows(zt)
+            return self._bridge(times).paths(zt, n_assets)
         return np.ascontiguousarray(zt.reshape(steps, n_assets, k).transpose(2, 1, 0))
 
 

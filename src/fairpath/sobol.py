@@ -79,6 +79,10 @@ def scrambled(dim: int, rng: np.random.Generator) -> tuple[np.ndarray, np.ndarra
     return sv, shift
 
 
+#: points generated together by :func:`_points` (one coordinate's run stays in cache)
+POINT_TILE = 256
+
+
 @njit(cache=True, nogil=True)
 def _points(sv, shift, start, n, out):
     dim, bits = sv.shape
@@ -92,16 +96,25 @@ def _points(sv, shift, start, n, out):
                 q[d] ^= sv[d, b]
         g >>= 1
         b += 1
-    for i in range(n):
+    # a tile of points at a time, coordinate by coordinate: each coordinate's row of ``out``
+    # is written in order (point by point across every coordinate missed the cache on every
+    # write once the coordinates were a few thousand: 5x slower at 4,700)
+    flips = np.empty(POINT_TILE, dtype=np.int64)
+    for i0 in range(0, n, POINT_TILE):
+        i1 = min(i0 + POINT_TILE, n)
+        for i in range(i0, i1):
+            idx = start + i + 1  # the next point flips the direction of the lowest set bit
+            c = 0
+            while (idx & 1) == 0:
+                idx >>= 1
+                c += 1
+            flips[i - i0] = c
         for d in range(dim):
-            out[d, i] = q[d] * scale
-        idx = start + i + 1  # the next point flips the direction of the lowest set bit
-        c = 0
-        while (idx & 1) == 0:
-            idx >>= 1
-            c += 1
-        for d in range(dim):
-            q[d] ^= sv[d, c]
+            qd = q[d]
+            for i in range(i0, i1):
+                out[d, i] = qd * scale
+                qd ^= sv[d, flips[i - i0]]
+            q[d] = qd
 
 
 def points(sv: np.ndarray, shift: np.ndarray, start: int, n: int) -> np.ndarray:
