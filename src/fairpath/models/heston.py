@@ -204,6 +204,10 @@ class StochSteps(ScalesWithSpot, Stepper):
         self.floored = self.points = 0
         mean_var = np.zeros((n_a, n_f))
         n_v = 0
+        if np.sum(self.code == LSV) > 1:
+            from fairpath.models.lsv import prepare_leverage
+
+            prepare_leverage(models, starts, dt)
         for i, m in enumerate(models):
             a = market.asset(m.name)
             if stoch[i]:
@@ -287,16 +291,17 @@ def _qe(v, zv, e, c1, c2, theta):
     psi = s2 / (m * m)
     if psi <= PSI_C:
         t = 2.0 / psi
-        b2 = t - 1.0 + math.sqrt(t) * math.sqrt(t - 1.0)
+        b2 = t - 1.0 + math.sqrt(t * (t - 1.0))
         a = m / (1.0 + b2)
         w = math.sqrt(b2) + zv
         return a * w * w, 0, a, b2, 0.0, 0.0
     p = (psi - 1.0) / (psi + 1.0)
     beta = (1.0 - p) / m
-    u = 0.5 * math.erfc(-zv * 0.7071067811865476)
-    if u <= p:
+    # U = Phi(zv) from its upper tail 1 - U (accurate where U is near 1): U <= p when the
+    # tail is at least 1 - p
+    tail = 0.5 * math.erfc(zv * 0.7071067811865476)
+    if tail >= 1.0 - p:
         return 0.0, 1, 0.0, 0.0, p, beta
-    tail = 0.5 * math.erfc(zv * 0.7071067811865476)  # 1 - u, accurate in the upper tail
     return math.log((1.0 - p) / tail) / beta, 1, 0.0, 0.0, p, beta
 
 
