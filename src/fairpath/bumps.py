@@ -16,6 +16,7 @@ would (value semantics: every bump returns a new market).
 from __future__ import annotations
 
 import dataclasses
+import math
 from datetime import timedelta
 
 import numpy as np
@@ -69,6 +70,11 @@ def vol(market: Market, name: str, dv: float, *, tenor: int | None = None,
     """Vols of ``name`` moved by ``dv``: every quote, or only the pillar / surface row
     ``tenor``, or only the surface column ``strike``; a surface is re-attached and re-checked."""
     a = market.asset(name)
+    if a.model == "heston" and a.heston is not None and not a.heston.calibrated:
+        return market.with_asset(_heston_vol(market, a, dv, tenor is None and strike is None))
+    if a.heston is not None and a.heston.calibrated and a.surface is not None:
+        # fitted to the surface on load: fitted again to the bumped one
+        a = dataclasses.replace(a, heston=None)
     if a.surface is None:
         if strike is not None:
             raise InputError(f"{name} has no vol surface, so no strike buckets",
@@ -89,6 +95,24 @@ def vol(market: Market, name: str, dv: float, *, tenor: int | None = None,
                          key=f"assets.{name}.vol_surface")
     moved = dataclasses.replace(s, vols=rows)
     return market.with_asset(_reattach(market, a, surface=moved))
+
+
+def _heston_vol(market: Market, a, dv: float, parallel: bool):
+    """A Heston asset given by its five parameters: the roots of ``v0`` and ``theta`` (its
+    vol today and in the long run) moved by ``dv``; no buckets (the surface does not drive
+    it)."""
+    if not parallel:
+        raise InputError(f"{a.name}'s Heston model takes its variance from the five numbers "
+                         "of its heston block, not from vol pillars: no vega buckets (calibrate"
+                         " = true fits them to the surface, whose buckets then apply)",
+                         source=market.source, key="--buckets")
+    h = a.heston
+    r0, rt = math.sqrt(h.v0) + dv, math.sqrt(h.theta) + dv
+    if not (r0 > 0 and rt > 0):
+        raise InputError(f"a vega bump would make {a.name}'s Heston vol non-positive: the roots "
+                         f"of v0 and theta are {math.sqrt(h.v0):g} and {math.sqrt(h.theta):g}",
+                         source=market.source, key=f"assets.{a.name}.heston")
+    return dataclasses.replace(a, heston=dataclasses.replace(h, v0=r0 * r0, theta=rt * rt))
 
 
 def rates(market: Market, dr: float) -> Market:

@@ -57,6 +57,10 @@ MAX_STEP_DAYS = 7.0
 #: Andersen's switching level between the quadratic and the exponential branch of QE.
 PSI_C = 1.5
 
+#: The leverage grid of an LSV asset: the local-vol table's moneyness grid cut this many
+#: times finer (early steps' particles span only a few of the table's points)
+LSV_REFINE = 4
+
 #: How each asset of a simulation is stepped (codes of the compiled loop).
 BLACK, LOCAL, HESTON, LSV = 0, 1, 2, 3
 
@@ -197,7 +201,9 @@ class StochSteps(ScalesWithSpot, Stepper):
         self.vfac = np.full(n_a, -1, dtype=np.int64)
         self.gbm_sd = np.zeros((n_a, n_f))
         tables = bool(np.any((self.code == LOCAL) | (self.code == LSV)))
-        self.table = np.zeros((n_a, n_f if tables else 0, Y_POINTS))
+        # an LSV leverage lives on the local-vol grid cut finer: local-vol rows follow it
+        width = Y_POINTS if not np.any(self.code == LSV) else (Y_POINTS - 1) * LSV_REFINE + 1
+        self.table = np.zeros((n_a, n_f if tables else 0, width))
         self.y0, self.dy = np.zeros(n_a), np.ones(n_a)
         self.par = np.zeros((n_a, 5))  # v0, theta, rho, sqrt(1 - rho^2), xi
         self.coef = np.zeros((n_a, 9, n_f))
@@ -226,8 +232,14 @@ class StochSteps(ScalesWithSpot, Stepper):
                     mean_var[i] = lev.mean_variance
             elif self.code[i] == LOCAL:
                 lv = local_table(a.surface, starts)
-                self.table[i] = np.sqrt(lv.variance * dt[:, None])
+                sd = np.sqrt(lv.variance * dt[:, None])
                 self.y0[i], self.dy[i] = lv.y0, lv.dy
+                if width != Y_POINTS:
+                    coarse = np.arange(Y_POINTS, dtype=float)
+                    fine_y = np.linspace(0.0, Y_POINTS - 1.0, width)
+                    sd = np.stack([np.interp(fine_y, coarse, row) for row in sd])
+                    self.dy[i] = lv.dy / LSV_REFINE
+                self.table[i] = sd
                 self.floored += lv.floored
                 self.points += lv.points
                 mean_var[i] = integrate_vol_product(a.vol, a.vol, starts, fine) / dt
