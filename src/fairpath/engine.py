@@ -895,6 +895,8 @@ def run(products: list[Product], scenarios: list[Market], settings: Settings, *,
     controls, control_notes = [], []
     for p in products:
         keep, dropped = usable_controls(p.controls(market) if settings.control else [], caps)
+        if settings.control:
+            keep = [*keep, *models.controls(p)]
         controls.append(keep)
         control_notes.append([] if not dropped else [
             "control variates whose known means this model does not guarantee switched off "

@@ -102,6 +102,11 @@ class Model:
         """Refuse a run of ``paths`` paths whose step variances ``variance`` (this asset's row,
         one value per grid step) put the forward where no path goes. Nothing by default."""
 
+    def controls(self, product) -> list:
+        """Control variates whose known means this model gives (a semi-analytic price of
+        its own) for ``product``'s paths; none by default."""
+        return []
+
     @classmethod
     def group_notes(cls, models: tuple[Model, ...], names: tuple[str, ...],
                     steps_per_day: int) -> list[str]:
@@ -302,6 +307,10 @@ class ModelSet:
     def check_run(self, variance: np.ndarray, paths: int) -> None:
         for i, m in enumerate(self.models):
             m.check_run(variance[i], paths)
+
+    def controls(self, product) -> list:
+        """Every model's own control variates for ``product`` (:meth:`Model.controls`)."""
+        return [c for m in self.models for c in m.controls(product)]
 
 
 def default_kind(market: Market, name: str) -> str:

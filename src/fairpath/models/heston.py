@@ -89,6 +89,32 @@ class Heston(Model):
     def check_run(self, variance: np.ndarray, paths: int) -> None:
         check_lognormal_tail(self.market, self.name, variance, paths)
 
+    def controls(self, product) -> list:
+        """A call on the asset struck at its forward on the product's last date, whose mean
+        is the semi-analytic Heston price (:func:`fairpath.fourier.heston_price`); none with
+        cash dividends (the level is then not a Heston process)."""
+        from fairpath.fourier import heston_price
+        from fairpath.products.base import ControlVariate
+
+        market, name = self.market, self.name
+        dates = product.observation_dates()
+        if name not in product.underlyings() or not dates or market.dividend_times(name):
+            return []
+        last = dates[-1]
+        t = market.time(last)
+        if not t > 0:
+            return []
+        df = float(market.discount.df(t))
+        spot, fwd = self.asset.spot, float(market.forward(name, t))
+        r = -math.log(df) / t
+        q = r - math.log(fwd / spot) / t
+        mean = heston_price(spot, fwd, t, r, q, *self.params.numbers, right="call")
+
+        def values(ps, name=name, last=last, df=df, k=fwd):
+            return df * np.maximum(ps.level(name, last) - k, 0.0)
+        return [ControlVariate(f"Heston call on {name} at the forward on {last} (Fourier "
+                               "price)", values, mean, model_free=True)]
+
     @classmethod
     def group_notes(cls, models, names, steps_per_day):
         out = [f"Heston stochastic volatility for {', '.join(m.name for m in models)} "
