@@ -5,9 +5,11 @@ closed form: Black-Scholes-Merton for calls and puts, the cash-or-nothing formul
 the discrete geometric-average formula for geometric Asians, Reiner-Rubinstein for continuously
 monitored barriers (with rebate), the exact quadrature price of discretely monitored ones
 (the Broadie-Glasserman-Kou shift is only an approximation: its accuracy is measured against
-the quadrature in the tests), Stulz's formula for two-asset worst-of and best-of baskets, and
+the quadrature in the tests), Stulz's formula for two-asset worst-of and best-of baskets,
 a strip of coupons plus a zero-coupon bond minus gap puts for a note that is never called and
-knocks in at maturity only. ``z = (MC - closed form) / stderr``. A case fails when
+knocks in at maturity only, Heston's semi-analytic price (Lewis's integral) for Heston
+Europeans, and Black-Scholes-Merton for local-stochastic vol on a flat surface.
+``z = (MC - closed form) / stderr``. A case fails when
 ``|MC - closed form| > Z_LIMIT * stderr + allowance * |closed form|``; the allowance is zero
 for every price (exact references) and, for a bumped Greek, the exact bias of the central
 difference.
@@ -111,6 +113,7 @@ def default_cases() -> list[Case]:
     cases += path_dependent_cases()
     cases += note_cases()
     cases += smile_cases()
+    cases += stochastic_vol_cases()
     return cases
 
 
@@ -167,6 +170,48 @@ def smile_cases() -> list[Case]:
                           European(asset="NORDA", right=right, strike=100.0 * k,
                                    expiry=one_year), m_skew, "sobol", seed=52,
                           reference=ref, allowance=SMILE_TOLERANCE * vega / ref))
+    return cases
+
+
+def stochastic_vol_cases() -> list[Case]:
+    """Heston by Monte Carlo (QE scheme, no control variates: the semi-analytic price would
+    otherwise serve as one) against the semi-analytic price, with the Feller condition
+    violated; and local-stochastic vol on a flat surface against Black-Scholes-Merton (its
+    leverage undoes the stochastic variance; within ``SMILE_TOLERANCE``)."""
+    from fairpath.fourier import heston_price
+    from fairpath.market import attach_surface
+    from fairpath.stochvol import HestonParams
+    from fairpath.surface import VolSurface
+
+    r, q = 0.03, 0.01
+    curve = DiscountCurve.flat(r)
+    h = HestonParams(0.04, 1.5, 0.05, 0.8, -0.7)  # Feller 2 kappa theta / xi^2 = 0.23
+    times = (0.25, 0.5, 1.0, 2.0, 3.0, 5.0)
+    asset = Asset("NORDA", 100.0, VolCurve(times, h.term_vols(times)), q, model="heston",
+                  heston=h)
+    m = Market(VALUATION, "EUR", curve, (asset,))
+    cases = []
+    for k, right, expiry, seed in ((90.0, "put", date(2028, 12, 1), 61),
+                                   (120.0, "call", date(2027, 12, 1), 62)):
+        t = m.time(expiry)
+        ref = heston_price(100.0, k, t, r, q, *h.numbers, right=right)
+        cases.append(Case(f"heston {right} K={k:g} {round(t)}y (Fourier), Feller 0.23",
+                          European(asset="NORDA", right=right, strike=k, expiry=expiry), m,
+                          "sobol", control=False, seed=seed, reference=ref))
+    tenors = (0.25, 0.5, 1.0, 2.0, 3.0)
+    strikes = (0.6, 0.7, 0.8, 0.9, 1.0, 1.1, 1.2, 1.35, 1.5)
+    flat = VolSurface(tenors, strikes, tuple((0.25,) * len(strikes) for _ in tenors))
+    lsv = attach_surface(Asset("NORDA", 100.0, VolCurve.flat(0.25), q, model="lsv", heston=h,
+                               mixing=1.0), flat, curve)
+    m_lsv = Market(VALUATION, "EUR", curve, (lsv,))
+    one_year = date(2027, 12, 1)
+    t = m_lsv.time(one_year)
+    ref = float(cf.bsm_price(100.0, 100.0, t, r, q, 0.25, "call"))
+    vega = float(cf.bsm_greeks(100.0, 100.0, t, r, q, 0.25, "call")["vega"])
+    cases.append(Case("lsv flat surface: call K=100 1y (+-0.3 vol pt)",
+                      European(asset="NORDA", right="call", strike=100.0, expiry=one_year),
+                      m_lsv, "sobol", seed=63, reference=ref,
+                      allowance=SMILE_TOLERANCE * vega / ref))
     return cases
 
 
