@@ -14,6 +14,7 @@ zero error bar.
 
 from __future__ import annotations
 
+import math
 import warnings
 from datetime import date
 
@@ -118,4 +119,7 @@ def test_local_vol_prices_say_their_error_bar_leaves_out_the_step_bias():
     vega = float(cf.bsm_greeks(100.0, 80.0, t, 0.03, 0.01, vol, "put")["vega"])
     r = fp.price(put, m, paths=16384, seed=2, richardson=True)
     assert abs(r.price - ref) < 4 * r.stderr + 0.003 * vega
-    assert r.to_dict()["discretisation_bias"]["plain_price"] == pytest.approx(plain.price)
+    # the bias is that of the plain price without control variates, on the Richardson run's
+    # own paths: within its errors of the plain run's price
+    d = r.to_dict()["discretisation_bias"]
+    assert abs(d["plain_price"] - plain.price) < 4 * math.hypot(d["plain_stderr"], plain.stderr)

@@ -180,15 +180,9 @@ def test_richardson_removes_the_bias_of_coarse_steps(tmp_path, monkeypatch):
         (bias, err)
 
 
-# BUG (reported to the owner of src/fairpath/estimate.py; strict xfail: remove the mark once
-# fixed). With --richardson the result says "the plain price ... was X, and its steps' bias is
-# measured at B", but X is the plain run with control variates (for a Heston European, the call
-# at the forward whose mean is the Fourier price: X comes out at the Fourier price itself, with
-# a zero error bar), while B is measured on runs without them: X does not carry the bias B.
-# Here X - Fourier = 0 and B = +0.39 (stderr 0.07); the plain price without controls is off by
-# +0.28 (stderr 0.03), which B does describe.
-@pytest.mark.xfail(strict=True, reason="BUG: the Richardson note's plain price has control "
-                   "variates, its measured bias is of the price without them")
+# With --richardson the result says "the plain price ... was X, and its steps' bias is measured
+# at B": X must be the price B describes, the plain run without control variates (with them, a
+# Heston European sits on the Fourier price itself, which carries no such bias).
 def test_richardson_reports_the_bias_of_the_plain_price_it_names(tmp_path, monkeypatch):
     monkeypatch.setattr(heston_module, "MAX_STEP_DAYS", 365.0)
     params = CASES["I"]
@@ -346,13 +340,8 @@ def test_bad_heston_input_is_refused_naming_the_key(tmp_path, capsys, asset_line
     assert_bad_input(*price_cli(tmp_path, capsys, asset_lines, block), *fragments)
 
 
-# BUG (reported to the owner of src/fairpath/stochvol.py and market.py; strict xfail: remove
-# the marks once fixed). A vol in percent typed as a variance (v0 = 20 for a 20% vol, i.e.
-# 0.04) passes the check, which refuses only variances above 25 (a 500% vol): a one-week call
-# is then priced silently at a 447% vol (exit 0); at ten years the run is refused, but naming
-# assets.NORDA.vol, a key the file does not have, with advice on path counts.
-@pytest.mark.xfail(strict=True, reason="BUG: v0 = 20 / theta = 20 (a vol in percent typed as a "
-                   "variance) is accepted")
+# A vol in percent typed as a variance (v0 = 20 for a 20% vol, i.e. 0.04) is refused naming
+# the key, short or long maturity alike.
 @pytest.mark.parametrize("key", ["v0", "theta"])
 @pytest.mark.parametrize("days", [7, 3650])
 def test_a_vol_in_percent_typed_as_a_variance_is_refused(tmp_path, capsys, key, days):
@@ -360,11 +349,8 @@ def test_a_vol_in_percent_typed_as_a_variance_is_refused(tmp_path, capsys, key, 
     assert_bad_input(code, out, err, f"assets.NORDA.heston.{key}", "0.04")
 
 
-# BUG (reported; strict xfail): model = "heston" with neither a heston block nor a surface (nor a
-# vol) is refused as "assets.NORDA.vol: missing required key", which says nothing of the model's
-# missing parameters; with a vol present the right message comes (the last case above).
-@pytest.mark.xfail(strict=True, reason="BUG: a heston model without parameters is refused as a "
-                   "missing vol")
+# model = "heston" with neither a heston block nor a surface (nor a vol) names the missing
+# heston block, not a missing vol.
 def test_heston_without_parameters_or_surface_names_the_heston_block(tmp_path, capsys):
     assert_bad_input(*price_cli(tmp_path, capsys, HESTON, ""), "[assets.NORDA.heston]")
 

@@ -828,7 +828,7 @@ RICHARDSON_STREAM = 0x7FFFFFFD
 
 def richardson(products: list[Product], market: Market, settings: Settings, paths: int,
                source: str | None = None
-               ) -> list[tuple[float, float, float, float, float]] | None:
+               ) -> list[tuple[float, ...]] | None:
     """Prices with the bias of discretised steps removed to first order, and that bias.
 
     Every path is simulated twice on one Brownian path: with twice the run's steps a day, and
@@ -838,7 +838,8 @@ def richardson(products: list[Product], market: Market, settings: Settings, path
     own bias is about ``2 (V_coarse - V_fine)``; each error bar comes from the spread of that
     combination itself (common random numbers). No control variates. None when the models'
     steps are exact. Returns per product ``(price, stderr, the 95% interval's quantile, bias,
-    bias stderr)``.
+    bias stderr, the plain price on the run's own steps, its stderr)`` (that plain price is
+    the coarse twin's, without control variates: the price whose bias is measured).
     """
     from fairpath.models.base import Coarsened
 
@@ -863,7 +864,7 @@ def richardson(products: list[Product], market: Market, settings: Settings, path
         combo = out.weighted(j)
         value, se = combo({0: 2.0, 1: -1.0})
         bias, bias_se = combo({1: 2.0, 0: -2.0})
-        result.append((value, se, quant, bias, bias_se))
+        result.append((value, se, quant, bias, bias_se, *combo({1: 1.0})))
     return result
 
 

@@ -229,20 +229,21 @@ def per_day(steps_per_day: int) -> str:
 
 
 def with_richardson(res: PriceResult, value: float, se: float, quant: float, bias: float,
-                    bias_se: float, steps_per_day: int, seconds: float,
-                    steps: str | None = None) -> PriceResult:
+                    bias_se: float, plain: float, plain_se: float, steps_per_day: int,
+                    seconds: float, steps: str | None = None) -> PriceResult:
     """The result with its price replaced by the Richardson extrapolation of the steps (no
     control variates), its error bar from the spread of the extrapolated values, and the
-    measured bias of the plain run said in a note and under ``discretisation_bias``."""
-    plain = steps or per_day(steps_per_day)
+    measured bias of the plain run (``plain``: the run's own steps without control variates,
+    on the same paths) said in a note and under ``discretisation_bias``."""
+    steps = steps or per_day(steps_per_day)
     note = (f"discretisation removed to first order (Richardson: 2 x the price on steps half "
-            f"as long - the price on the {plain}, on the same Brownian "
-            f"paths, no control variates): the plain price on the {plain} was "
-            f"{res.price:.6g}, and its steps' bias is measured at {bias:+.4g} (stderr "
-            f"{bias_se:.2g})")
+            f"as long - the price on the {steps}, on the same Brownian "
+            f"paths, no control variates): the plain price on the {steps} (no control "
+            f"variates) was {plain:.6g} (stderr {plain_se:.2g}), and its steps' bias is "
+            f"measured at {bias:+.4g} (stderr {bias_se:.2g})")
     extras = {**res.extras, "discretisation_bias": {
         "estimate": bias, "stderr": bias_se, "steps_per_day": steps_per_day,
-        "plain_price": res.price, "plain_stderr": res.stderr}}
+        "plain_price": plain, "plain_stderr": plain_se}}
     return dataclasses.replace(res, price=value, stderr=se,
                                ci95=(value - quant * se, value + quant * se), controls=(),
                                variance_reduction=None, seconds=seconds,

@@ -453,6 +453,13 @@ def load_market(path: str | Path) -> Market:
         spot = a.number("spot", positive=True, limit=MAX_AMOUNT)
         heston, calibrate, mixing = (parse_heston(a.table("heston")) if a.has("heston")
                                      else (None, False, None))
+        model = a.string("model", None)
+        if model is not None:
+            check_model_kind(model, source=src, key=a.key("model"))
+        if model in ("heston", "lsv") and heston is None and not calibrate:
+            raise a.error("model", f"the {model} model needs its variance process: give "
+                          f"[assets.{name}.heston] (v0, kappa, theta, vol_of_vol, "
+                          "spot_vol_correlation, or calibrate = true)")
         surface = None
         if a.has("vol_surface"):
             if a.has("vol") or a.has("vol_tenors") or a.has("vols"):
@@ -490,17 +497,10 @@ def load_market(path: str | Path) -> Market:
             law = parse_law(a.raw("law"), base_dir=Path(src).parent, source=src,
                             key=a.key("law"))
         dividends = _dividends(a, valuation)
-        model = a.string("model", None)
-        if model is not None:
-            check_model_kind(model, source=src, key=a.key("model"))
         a.finish()
         if surface is not None and not law.is_normal:
             raise a.error("law", "a non-normal law and a volatility surface cannot be combined "
                           "(local volatility steps with normal shocks)")
-        if model in ("heston", "lsv") and heston is None and not calibrate:
-            raise a.error("model", f"the {model} model needs its variance process: give "
-                          f"[assets.{name}.heston] (v0, kappa, theta, vol_of_vol, "
-                          "spot_vol_correlation, or calibrate = true)")
         if mixing is not None and model != "lsv":
             raise a.error("heston.mixing", "mixing applies to model = \"lsv\" only")
         asset = Asset(name, spot, vol, q, law, dividends=dividends, model=model,

@@ -21,11 +21,11 @@ from dataclasses import dataclass
 import numpy as np
 
 from fairpath.errors import InputError
-from fairpath.inputs import MAX_VOL, Table
+from fairpath.inputs import Table
 
-#: Largest variance ``v0`` or ``theta`` a file may give (a 500% vol): a larger one is a vol
-#: typed in percent, or a vol where a variance belongs.
-MAX_VARIANCE = MAX_VOL * MAX_VOL
+#: Largest variance ``v0`` or ``theta`` a file may give (that of a 200% vol): a larger one is a
+#: vol typed in percent where a variance belongs (``v0 = 20`` for a 20% vol, 0.04).
+MAX_VARIANCE = 4.0
 #: Largest vol of vol (500%): a larger one is a percentage typed as a number.
 MAX_VOL_OF_VOL = 5.0
 #: Largest speed of mean reversion (a half-life of about 4 trading days).
@@ -128,7 +128,7 @@ def parse_heston(tab: Table) -> tuple[HestonParams | None, bool, float | None]:
     if abs(rho) > 1:
         raise tab.error("spot_vol_correlation", f"a correlation must be between -1 and 1, got "
                         f"{rho:g}" + (f"; a percentage? write {rho / 100:g}"
-                                      if abs(rho) <= 100 else ""))
+                                      if 10 <= abs(rho) <= 100 else ""))
     tab.finish()
     return HestonParams(v0, kappa, theta, sigma, rho), False, mixing
 
@@ -140,5 +140,6 @@ def _variance(tab: Table, key: str) -> float:
     if v > MAX_VARIANCE:
         hint = (f"; {key} is a variance: write {(v / 100) ** 2:g} for a {v:g}% vol"
                 if v <= 100 else "")
-        raise tab.error(key, f"{v:g} is a variance of a {math.sqrt(v):.0%} vol{hint}")
+        raise tab.error(key, f"{v:g} is the variance of a {math.sqrt(v):.0%} vol (at most "
+                        f"{MAX_VARIANCE:g}){hint}")
     return v

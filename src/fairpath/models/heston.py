@@ -53,7 +53,7 @@ from fairpath.stochvol import HestonParams
 #: Longest step of a Heston simulation, in calendar days: each grid interval is cut into
 #: equal pieces no longer than this (daily grids are stepped daily). Measured in
 #: benchmarks/heston_bias.py: see docs/models.md.
-MAX_STEP_DAYS = 7.0
+MAX_STEP_DAYS = 14.0
 #: paths stepped together by the compiled loop (measured on the demo note under Heston: 8
 #: paths a tile 15% faster than the local-vol loop's 64: the tile's two factors per asset
 #: stay in the first cache)
