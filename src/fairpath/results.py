@@ -64,7 +64,10 @@ class PriceResult:
                   "replicates": self.replicates, "controls": list(self.controls),
                   "variance_reduction": self.variance_reduction, "notes": list(self.notes)})
         if self.diagnostics:
-            d["diagnostics"] = self.diagnostics
+            d["diagnostics"] = {k: v for k, v in self.diagnostics.items()
+                                if not k.startswith(EXERCISE_PREFIX)}
+        if self.exercise:
+            d["exercise"] = self.exercise
         if "discretisation_bias" in self.extras:
             d["discretisation_bias"] = dict(self.extras["discretisation_bias"])
         return d
@@ -73,6 +76,12 @@ class PriceResult:
     def diagnostics(self) -> dict[str, float]:
         """Averages over the paths of the product's diagnostics (e.g. redemption odds)."""
         return dict(self.extras.get("diagnostics", {}))
+
+    @property
+    def exercise(self) -> dict[str, float]:
+        """An early-exercise product's probability of exercise on each date (ISO dates)."""
+        return {k[len(EXERCISE_PREFIX):]: v for k, v in self.diagnostics.items()
+                if k.startswith(EXERCISE_PREFIX)}
 
     def to_json(self) -> str:
         return json.dumps(self.to_dict())
@@ -91,7 +100,17 @@ class PriceResult:
         if self.variance_reduction is not None:
             rows.append(("variance reduction", f"x{self.variance_reduction:.3g}"))
         rows.append(("seconds", f"{self.seconds:.3f}"))
-        rows.extend((k, f"{v:.6g}") for k, v in self.diagnostics.items())
+        rows.extend((k, f"{v:.6g}") for k, v in self.diagnostics.items()
+                    if not k.startswith(EXERCISE_PREFIX))
+        ex = self.exercise
+        if ex:
+            if len(ex) <= 12:
+                rows.extend((f"exercise {d}", f"{v:.4g}") for d, v in ex.items())
+            else:  # a daily American: the busiest dates, the rest in --json
+                top = sorted(ex.items(), key=lambda kv: -kv[1])[:3]
+                rows.append(("exercise dates", f"{len(ex)}; most likely "
+                             + ", ".join(f"{d} ({v:.3g})" for d, v in top)
+                             + " (every date in --json)"))
         rows.extend(("note", n) for n in self.notes)
         return rows
 
@@ -106,6 +125,10 @@ class PriceResult:
                        for k, v in self._rows())
         title = f"<caption>{html.escape(self.product)}</caption>" if self.product else ""
         return f"<table>{title}{body}</table><p><small>{html.escape(CAUTION)}</small></p>"
+
+
+#: diagnostics keys of the probability of exercise on a date (early-exercise products)
+EXERCISE_PREFIX = "exercise "
 
 
 @dataclass(frozen=True, slots=True)

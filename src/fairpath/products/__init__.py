@@ -5,6 +5,7 @@ from fairpath.products.autocall import Autocallable
 from fairpath.products.barrier import Barrier
 from fairpath.products.base import REGISTRY, ControlVariate, PathSet, Product, product_class
 from fairpath.products.basket import Basket
+from fairpath.products.exercise import American
 from fairpath.products.formula import Formula
 from fairpath.products.loader import load_product, product_from_dict
 from fairpath.products.vanilla import Digital, European
@@ -16,7 +17,7 @@ for _kind in REGISTRY:
     register_shortcut(_kind, Shortcut.LIKELIHOOD_RATIO, {Capability.SCORE})
 
 __all__ = [
-    "Asian", "Autocallable", "Barrier", "Basket", "ControlVariate", "Digital", "European",
-    "Formula", "PathSet", "Product", "REGISTRY", "load_product", "product_class",
+    "American", "Asian", "Autocallable", "Barrier", "Basket", "ControlVariate", "Digital",
+    "European", "Formula", "PathSet", "Product", "REGISTRY", "load_product", "product_class",
     "product_from_dict",
 ]
