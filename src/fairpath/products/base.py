@@ -178,6 +178,12 @@ class Product:
             REGISTRY[cls.kind] = cls
 
     @classmethod
+    def for_terms(cls, tab) -> type[Product]:
+        """The class a file of this ``kind`` builds, given its table (a variant of the kind,
+        e.g. a basket with exercise dates); the class itself by default."""
+        return cls
+
+    @classmethod
     def from_table(cls, tab) -> dict:
         """Constructor keywords read from a product file's table (``fairpath.inputs.Table``)."""
         raise NotImplementedError

@@ -187,19 +187,20 @@ class EarlyExercise(Product):
         return tuple(d for d in self.observation_dates() if d > paths.market.valuation_date)
 
     # the exercise value and the normalisation, per family
-    def exercise_values(self, levels: np.ndarray) -> np.ndarray:
+    def exercise_values(self, levels: np.ndarray, market) -> np.ndarray:
         """Payoff of exercising, (paths, dates), from levels (paths, assets, dates)."""
         raise NotImplementedError
 
-    def scale(self) -> float:
-        """What the levels are divided by in the basis (a strike)."""
+    def normalise(self, levels: np.ndarray, market) -> np.ndarray:
+        """The levels (paths, assets, dates) as the basis reads them (over a strike, or over
+        the initial levels)."""
         raise NotImplementedError
 
     def _state(self, paths: PathSet):
         dates = self.decision_dates(paths)
         levels = np.stack([np.exp(paths.log_levels_at(d)) for d in dates], axis=2)
         dfs = np.array([paths.df(d) for d in dates])
-        return dates, levels, self.exercise_values(levels), dfs
+        return dates, levels, self.exercise_values(levels, paths.market), dfs
 
     def pilot_paths(self) -> int:
         return self.pilot if self.policy is None else 0
@@ -208,14 +209,16 @@ class EarlyExercise(Product):
         import dataclasses
 
         dates, levels, values, dfs = self._state(pilot)
-        policy = fit_policy(dates, levels / self.scale(), values, dfs, self.basis_degree)
+        policy = fit_policy(dates, self.normalise(levels, pilot.market), values, dfs,
+                            self.basis_degree)
         return dataclasses.replace(self, policy=policy)
 
     def evaluate(self, paths: PathSet) -> tuple[np.ndarray, dict[str, np.ndarray]]:
         if self.policy is None:
             raise InputError("an early-exercise product must be fitted before pricing")
         dates, levels, values, dfs = self._state(paths)
-        cash, when = apply_policy(self.policy, dates, levels / self.scale(), values, dfs)
+        cash, when = apply_policy(self.policy, dates, self.normalise(levels, paths.market),
+                                  values, dfs)
         diag: dict[str, np.ndarray] = {}
         t = np.array([paths.market.time(d) for d in dates])
         life = np.where(when >= 0, t[np.maximum(when, 0)], t[-1] if len(t) else 0.0)
@@ -224,7 +227,7 @@ class EarlyExercise(Product):
         diag["exercised before expiry"] = (early & (when >= 0)).astype(float)
         for k, d in enumerate(dates):
             diag[f"exercise {d.isoformat()}"] = (when == k).astype(float)
-        return cash * self.quantity, diag
+        return cash * self.size, diag
 
     def payoff(self, paths: PathSet) -> np.ndarray:
         return self.evaluate(paths)[0]
@@ -287,13 +290,92 @@ class American(EarlyExercise):
     def underlyings(self) -> tuple[str, ...]:
         return (self.asset,)
 
-    def exercise_values(self, levels: np.ndarray) -> np.ndarray:
+    @property
+    def size(self) -> float:
+        return self.quantity
+
+    def exercise_values(self, levels: np.ndarray, market) -> np.ndarray:
         s = levels[:, 0, :]
         return np.maximum(s - self.strike, 0.0) if self.right == "call" else \
             np.maximum(self.strike - s, 0.0)
 
-    def scale(self) -> float:
-        return self.strike
+    def normalise(self, levels: np.ndarray, market) -> np.ndarray:
+        return levels / self.strike
+
+
+@dataclass(frozen=True, slots=True)
+class BermudanBasket(EarlyExercise):
+    """A basket option (:class:`fairpath.products.basket.Basket`'s terms) whose holder may take
+    the basket payoff on any of ``exercise_dates`` or at expiry: ``kind = "basket"`` with
+    ``exercise_dates`` (e.g. a Bermudan max-call, ``combine = "best"``)."""
+
+    kind: ClassVar[str] = ""  # read as a "basket" (Basket.for_terms picks this class)
+
+    assets: tuple[str, ...] = field(kw_only=True)
+    combine: str = field(kw_only=True)
+    right: str = field(kw_only=True)
+    strike_level: float = field(kw_only=True)
+    weights: tuple[float, ...] | None = field(default=None, kw_only=True)
+    notional: float = field(default=1.0, kw_only=True)
+    initial_levels: tuple[tuple[str, float], ...] = field(default=(), kw_only=True)
+
+    def __post_init__(self):
+        if self.exercise_dates is None:
+            raise InputError("a Bermudan basket needs its exercise_dates", key="exercise_dates")
+        terms = self.terms()  # the basket's own checks, and its normalised terms
+        for k in ("assets", "weights", "initial_levels"):
+            object.__setattr__(self, k, getattr(terms, k))
+        self._check_exercise()
+
+    def terms(self):
+        """The same basket exercised only at expiry (its terms checked)."""
+        from fairpath.products.basket import Basket
+
+        return Basket(assets=self.assets, combine=self.combine, right=self.right,
+                      strike_level=self.strike_level, expiry=self.expiry, weights=self.weights,
+                      notional=self.notional, initial_levels=self.initial_levels)
+
+    @classmethod
+    def from_table(cls, tab) -> dict:
+        from fairpath.products.basket import Basket
+
+        return {**Basket.from_table(tab), **exercise_keys(tab)}
+
+    @property
+    def size(self) -> float:
+        return self.notional
+
+    def label(self) -> str:
+        return self.name or "basket (Bermudan)"
+
+    def underlyings(self) -> tuple[str, ...]:
+        return self.assets
+
+    def check(self, market, source=None) -> None:
+        EarlyExercise.check(self, market, source)
+        market.correlation_matrix(self.assets, source=source, key="assets")
+
+    def struck(self, market):
+        import dataclasses
+
+        if self.initial_levels:
+            return self
+        return dataclasses.replace(self, initial_levels=self.terms().struck(market)
+                                   .initial_levels)
+
+    def normalise(self, levels: np.ndarray, market) -> np.ndarray:
+        return levels / self.terms().initial(market)[None, :, None]
+
+    def exercise_values(self, levels: np.ndarray, market) -> np.ndarray:
+        perf = self.normalise(levels, market)
+        if self.combine == "worst":
+            level = perf.min(axis=1)
+        elif self.combine == "best":
+            level = perf.max(axis=1)
+        else:
+            level = np.einsum("pad,a->pd", perf, np.asarray(self.terms().basket_weights))
+        k = self.strike_level
+        return np.maximum(level - k, 0.0) if self.right == "call" else np.maximum(k - level, 0.0)
 
 
 def exercise_keys(tab) -> dict:

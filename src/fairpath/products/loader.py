@@ -25,6 +25,7 @@ def product_from_dict(data: dict, *, source: str | None = None) -> Product:
     """Build a product from the contents of a product file (a dict)."""
     tab = Table(data, source)
     cls = product_class(tab.raw("kind"), source=source)
+    cls = cls.for_terms(tab)
     kwargs = cls.from_table(tab)
     tab.finish()
     try:
