@@ -149,6 +149,9 @@ def build_parser() -> argparse.ArgumentParser:
                    help="under local volatility, remove the bias of the daily steps to first "
                         "order (twice the steps on the same paths) and report it; about four "
                         "times the time")
+    p.add_argument("--dual", action="store_true",
+                   help="early exercise: the other bound by duality (Andersen-Broadie, "
+                        "nested simulation)")
     _add_law_options(p)
     p.add_argument("--json", action="store_true", help="print one JSON object")
 
@@ -298,7 +301,8 @@ def _price(args) -> int:
                          control=not args.no_control, target_stderr=args.target_stderr,
                          max_paths=args.max_paths, replicates=args.replicates,
                          source=args.product, progress=not args.json and sys.stderr.isatty(),
-                         steps_per_day=args.steps_per_day, richardson=args.richardson)
+                         steps_per_day=args.steps_per_day, richardson=args.richardson,
+                         dual=args.dual)
     return _emit(res, args.json)
 
 

@@ -47,7 +47,7 @@ def price(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
           chunk_paths: int | None = None, source: str | None = None,
           progress: bool = False, threads: int | None = None,
           stream: tuple[int, ...] = (), steps_per_day: int = 1,
-          richardson: bool = False) -> PriceResult:
+          richardson: bool = False, dual: bool = False) -> PriceResult:
     """Monte Carlo price of ``product`` on ``market``.
 
     Parameters
@@ -98,7 +98,7 @@ def price(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
                       antithetic=antithetic, control=control, target_stderr=target_stderr,
                       max_paths=max_paths, replicates=replicates, chunk_paths=chunk_paths,
                       source=source, progress=progress, threads=threads, stream=stream,
-                      steps_per_day=steps_per_day, richardson=richardson)[0]
+                      steps_per_day=steps_per_day, richardson=richardson, dual=dual)[0]
 
 
 def price_many(products: list[Product], market: Market, *, paths: int = DEFAULT_PATHS,
@@ -108,7 +108,8 @@ def price_many(products: list[Product], market: Market, *, paths: int = DEFAULT_
                chunk_paths: int | None = None, source: str | None = None,
                control_set: tuple[str, ...] | None = None, progress: bool = False,
                threads: int | None = None, stream: tuple[int, ...] = (),
-               steps_per_day: int = 1, richardson: bool = False) -> list[PriceResult]:
+               steps_per_day: int = 1, richardson: bool = False,
+               dual: bool = False) -> list[PriceResult]:
     """Price several products on the same assets with the same random numbers.
 
     Arguments as for :func:`price`; ``target_stderr`` applies to the first product;
@@ -121,9 +122,20 @@ def price_many(products: list[Product], market: Market, *, paths: int = DEFAULT_
                         replicates=replicates, control=control, threads=threads,
                         steps_per_day=steps_per_day, chunk_paths=chunk_paths, stream=stream,
                         progress=progress)
-    return price_run(products, market, settings, source=source, control_set=control_set,
-                     target_stderr=target_stderr, max_paths=max_paths, t_start=t_start,
-                     richardson_steps=richardson)
+    if dual:
+        from fairpath.duality import check_dual
+
+        for p in products:
+            check_dual(p, market, source or p.source)
+    out = price_run(products, market, settings, source=source, control_set=control_set,
+                    target_stderr=target_stderr, max_paths=max_paths, t_start=t_start,
+                    richardson_steps=richardson)
+    if dual:
+        from fairpath.duality import with_bounds
+
+        out = [with_bounds(res, seed=seed, steps_per_day=steps_per_day, source=source)
+               for res in out]
+    return out
 
 
 def price_run(products: list[Product], market: Market, settings: Settings, *,

@@ -70,6 +70,8 @@ class PriceResult:
             d["exercise"] = self.exercise
         if "discretisation_bias" in self.extras:
             d["discretisation_bias"] = dict(self.extras["discretisation_bias"])
+        if "bounds" in self.extras:
+            d["bounds"] = dict(self.extras["bounds"])
         return d
 
     @property
@@ -100,6 +102,13 @@ class PriceResult:
         if self.variance_reduction is not None:
             rows.append(("variance reduction", f"x{self.variance_reduction:.3g}"))
         rows.append(("seconds", f"{self.seconds:.3f}"))
+        b = self.extras.get("bounds")
+        if b:
+            rows.append(("lower bound", f"{b['lower']['value']:.6f} (stderr "
+                                        f"{b['lower']['stderr']:.6f})"))
+            rows.append(("upper bound", f"{b['upper']['value']:.6f} (stderr "
+                                        f"{b['upper']['stderr']:.6f}) by duality"))
+            rows.append(("duality gap", f"{b['gap']:.6f}"))
         rows.extend((k, f"{v:.6g}") for k, v in self.diagnostics.items()
                     if not k.startswith(EXERCISE_PREFIX))
         ex = self.exercise
