@@ -520,6 +520,10 @@ def greeks(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
         notes.append(f"no likelihood-ratio estimator here ({why}): delta and gamma are bumped")
     notes.extend(div_notes)
     notes.extend(res.notes)
+    if getattr(res.products[0], "policy", None) is not None:  # early exercise
+        notes.append("early exercise: every bumped scenario exercises by the policy fitted on "
+                     "the base market's pilot paths, held fixed (Greeks through the frozen "
+                     "policy, the standard practice)")
     smp = res.sampler
     pw_names: list[Estimator] = list(holder.get("names", []))
 
