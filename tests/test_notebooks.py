@@ -30,5 +30,5 @@ def test_notebook_runs_and_is_stored_without_outputs(path, monkeypatch):
     assert not errors
 
 
-def test_there_are_five_notebooks():
-    assert len(NOTEBOOKS) >= 5
+def test_there_are_six_notebooks():
+    assert len(NOTEBOOKS) >= 6
