@@ -339,7 +339,7 @@ def test_write_rewrites_an_inline_heston_table(tmp_path):
     fit = fitted(m, "VIREO")
     assert m.asset("VIREO").heston == fit.params
     out = tmp_path / "out.toml"
-    write_fitted(src, out, {"VIREO": fit})
+    write_fitted(src, out, {"VIREO": fit}, load_market)
     assert load_market(out).asset("VIREO").heston.numbers == fit.params.numbers
 
 
@@ -351,7 +351,7 @@ def test_write_leaves_nothing_on_error(tmp_path, monkeypatch):
     target.write_text("untouched\n")
     monkeypatch.setattr(cal, "fitted_text", lambda text, fits, source=None: text + "[broken\n")
     with pytest.raises(InputError, match="would not load back"):
-        write_fitted(src, target, {"NORDA": fit})
+        write_fitted(src, target, {"NORDA": fit}, load_market)
     assert target.read_text() == "untouched\n"
     assert sorted(p.name for p in tmp_path.iterdir()) == ["kept.toml", "m.toml"]
 

@@ -16,6 +16,7 @@ from fairpath.market import Asset, Correlation, DiscountCurve, Market, VolCurve,
 from fairpath.models import Model, ModelSet
 from fairpath.products import (
     REGISTRY,
+    American,
     Asian,
     Autocallable,
     Barrier,
@@ -33,7 +34,8 @@ from fairpath.solve import SolveResult, solve
 __version__ = "0.1.0"
 
 __all__ = [
-    "Asian", "Asset", "Autocallable", "Barrier", "Basket", "BookSummary", "CAUTION", "Correlation",
+    "American", "Asian", "Asset", "Autocallable", "Barrier", "Basket", "BookSummary", "CAUTION",
+    "Correlation",
     "Digital", "DiscountCurve", "EmpiricalLaw", "European", "FairpathError", "FairpathWarning",
     "Formula", "GreekProfile", "GreeksResult", "InputError", "Law", "Market", "Model", "ModelSet",
     "NormalLaw",

@@ -773,13 +773,12 @@ def fitted_text(text: str, fits: dict[str, HestonFit], *, source: str | None = N
 
 
 def write_fitted(market_path: str | Path, out_path: str | Path,
-                 fits: dict[str, HestonFit]) -> None:
+                 fits: dict[str, HestonFit], load_market) -> None:
     """Write the market file at ``market_path`` with the fitted Heston blocks to
     ``out_path`` (:func:`fitted_text`), atomically: a temporary file beside the target is
-    written, loaded back (every fitted asset must read back the same five numbers), then
-    renamed over the target; on any error nothing is left behind."""
-    from fairpath.market import load_market
-
+    written, loaded back by ``load_market`` (:func:`fairpath.market.load_market`, handed in:
+    the market module calls this one on load) and every fitted asset must read back the same
+    five numbers, then renamed over the target; on any error nothing is left behind."""
     src, out = Path(market_path), Path(out_path)
     try:
         text = src.read_text(encoding="utf-8")

@@ -465,7 +465,7 @@ def _calibrate(args) -> int:
                              source=market.source, key="assets")
     fits = {n: fitted(market, n) for n in names}
     if args.write:
-        write_fitted(args.market, args.write, fits)
+        write_fitted(args.market, args.write, fits, load_market)
     if args.json:
         print(json.dumps({n: f.to_dict() for n, f in fits.items()}))
         return 0

@@ -98,7 +98,7 @@ def dual_bounds(product, market, lower: float, lower_se: float, *, seed: int | N
     z = smp.normals(smp.plan(outer), sim.factors, sim.sim_times)
     ps = sim.pathsets(stepper.simulate(z).log_levels)[0]
     dates, levels, values, dfs = product._state(ps)
-    norm = product.normalise(levels, market)
+    norm, extra, floor = product.regressors(levels, dates, market)
     h = values * dfs[None, :] * product.size  # (outer, dates), discounted to today
     m = len(dates)
     cols = [sim.grid_dates.index(d) for d in dates]
@@ -120,7 +120,11 @@ def dual_bounds(product, market, lower: float, lower_se: float, *, seed: int | N
             continue
         itm = ev > 0
         idx = np.flatnonzero(itm)
-        exercise[idx, k] = ev[idx] >= basis(norm[idx, :, k], product.policy.degree) @ c
+        go = ev[idx] >= basis(norm[idx, :, k], product.policy.degree,
+                              None if extra is None else extra[idx, :, k]) @ c
+        if floor is not None:
+            go &= ev[idx] > floor[idx, k]
+        exercise[idx, k] = go
     value = np.where(exercise, h, cont)  # L_k
     prev = np.concatenate([np.full((outer, 1), lower), cont[:, :-1]], axis=1)  # C_{k-1}
     # the martingale started at the lower bound (Andersen and Broadie's pi_0 = L_0): the excess
@@ -153,8 +157,9 @@ def _inner_values(product, market, stepper, x0: np.ndarray, col: int, dates, col
                 levels[:, :, j] = np.exp(x)
                 j += 1
         values = product.exercise_values(levels, market)
-        cash, _ = apply_policy(product.policy, tuple(dates), product.normalise(levels, market),
-                               values, np.asarray(dfs))
+        x, extra, floor = product.regressors(levels, tuple(dates), market)
+        cash, _ = apply_policy(product.policy, tuple(dates), x, values, np.asarray(dfs), extra,
+                               floor)
         out[o0:o1] = cash.reshape(o1 - o0, inner).mean(axis=1)
     return out
 

@@ -897,7 +897,8 @@ def run(products: list[Product], scenarios: list[Market], settings: Settings, *,
     for p in products:
         keep, dropped = usable_controls(p.controls(market) if settings.control else [], caps)
         if settings.control:
-            keep = [*keep, *models.controls(p)]
+            keep = [*keep, *(ControlVariate(name, fn, mean, model_free=True)
+                             for name, fn, mean in models.controls(p))]
         controls.append(keep)
         control_notes.append([] if not dropped else [
             "control variates whose known means this model does not guarantee switched off "

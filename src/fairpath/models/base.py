@@ -104,7 +104,8 @@ class Model:
 
     def controls(self, product) -> list:
         """Control variates whose known means this model gives (a semi-analytic price of
-        its own) for ``product``'s paths; none by default."""
+        its own) for ``product``'s paths, as ``(name, values(paths), mean)``; none by
+        default (the engine makes them control variates: models know no products)."""
         return []
 
     @classmethod

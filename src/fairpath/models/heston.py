@@ -94,11 +94,11 @@ class Heston(Model):
         check_lognormal_tail(self.market, self.name, variance, paths)
 
     def controls(self, product) -> list:
-        """A call on the asset struck at its forward on the product's last date, whose mean
-        is the semi-analytic Heston price (:func:`fairpath.fourier.heston_price`); none with
-        cash dividends (the level is then not a Heston process)."""
+        """``(name, values, mean)``: a call on the asset struck at its forward on the
+        product's last date, whose mean is the semi-analytic Heston price
+        (:func:`fairpath.fourier.heston_price`); none with cash dividends (the level is then
+        not a Heston process)."""
         from fairpath.fourier import heston_price
-        from fairpath.products.base import ControlVariate
 
         market, name = self.market, self.name
         dates = product.observation_dates()
@@ -116,8 +116,8 @@ class Heston(Model):
 
         def values(ps, name=name, last=last, df=df, k=fwd):
             return df * np.maximum(ps.level(name, last) - k, 0.0)
-        return [ControlVariate(f"Heston call on {name} at the forward on {last} (Fourier "
-                               "price)", values, mean, model_free=True)]
+        return [(f"Heston call on {name} at the forward on {last} (Fourier price)", values,
+                 mean)]
 
     @classmethod
     def group_notes(cls, models, names, steps_per_day):
@@ -240,10 +240,9 @@ class StochSteps(ScalesWithSpot, Stepper):
         self.floored = self.points = 0
         mean_var = np.zeros((n_a, n_f))
         n_v = 0
-        if np.sum(self.code == LSV) > 1:
-            from fairpath.models.lsv import prepare_leverage
-
-            prepare_leverage(models, starts, dt)
+        lsv = [m for m in models if stepping_code(m) == LSV]
+        if len(lsv) > 1:  # their leverage tables calibrated together (lsv.prepare_leverage)
+            type(lsv[0]).prepare(lsv, starts, dt)
         for i, m in enumerate(models):
             a = market.asset(m.name)
             if stoch[i]:

@@ -119,6 +119,11 @@ class LocalStochasticVol(Model):
     def stepper(cls, models, correlation, times, steps_per_day):
         return StochSteps(models, correlation, times, steps_per_day)
 
+    @classmethod
+    def prepare(cls, models, starts: np.ndarray, dt: np.ndarray) -> None:
+        """Calibrate these models' leverage on the steps together (:func:`prepare_leverage`)."""
+        prepare_leverage(models, starts, dt)
+
     def leverage_table(self, starts: np.ndarray, dt: np.ndarray) -> LeverageTable:
         from fairpath.models.local_vol import local_table
 

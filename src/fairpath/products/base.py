@@ -23,6 +23,9 @@ from fairpath.registry import PATHWISE, Capability, Estimator, Shortcut, usable
 
 #: kind name -> product class
 REGISTRY: dict[str, type[Product]] = {}
+#: Variants of a kind picked by a key of its file: (kind, key) -> class (a basket with
+#: exercise_dates is a Bermudan basket)
+VARIANTS: dict[tuple[str, str], type[Product]] = {}
 #: Latest date a product may use, in years after the valuation date: a later one is a typo
 #: (9999-12-01), and a daily grid out to it would not fit in memory.
 MAX_YEARS = 100
@@ -179,8 +182,12 @@ class Product:
 
     @classmethod
     def for_terms(cls, tab) -> type[Product]:
-        """The class a file of this ``kind`` builds, given its table (a variant of the kind,
-        e.g. a basket with exercise dates); the class itself by default."""
+        """The class a file of this ``kind`` builds, given its table: a variant registered in
+        :data:`VARIANTS` for a key the file gives (a basket with exercise dates), else the
+        class itself."""
+        for (kind, key), variant in VARIANTS.items():
+            if kind == cls.kind and tab.has(key):
+                return variant
         return cls
 
     @classmethod

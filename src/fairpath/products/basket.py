@@ -125,14 +125,6 @@ class Basket(Product):
                              f"{', '.join(missing)}", key="initial_levels")
 
     @classmethod
-    def for_terms(cls, tab) -> type[Product]:
-        """The class a basket file builds: a Bermudan basket when it gives exercise_dates."""
-        if tab.has("exercise_dates"):
-            from fairpath.products.exercise import BermudanBasket
-            return BermudanBasket
-        return cls
-
-    @classmethod
     def from_table(cls, tab) -> dict:
         assets = read_asset_names(tab)
         weights = tab.list("weights", None)

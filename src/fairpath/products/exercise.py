@@ -34,7 +34,8 @@ import numpy as np
 from fairpath.dates import schedule_dates
 from fairpath.errors import InputError
 from fairpath.inputs import MAX_AMOUNT
-from fairpath.products.base import PathSet, Product, single_asset_quantity
+from fairpath.products.base import VARIANTS, PathSet, Product, single_asset_quantity
+from fairpath.products.basket import Basket
 
 #: Pilot paths of the regression when the product does not say (measured: see docs/products.md)
 DEFAULT_PILOT = 1 << 15
@@ -69,9 +70,12 @@ class ExercisePolicy:
         return max(self.conditions, default=0.0)
 
 
-def basis(x: np.ndarray, degree: int) -> np.ndarray:
-    """The regression basis of the normalised levels ``x`` (paths, assets)."""
+def basis(x: np.ndarray, degree: int, extra: np.ndarray | None = None) -> np.ndarray:
+    """The regression basis of the normalised levels ``x`` (paths, assets), with the
+    product's ``extra`` columns (paths, k) appended."""
     n, a = x.shape
+    if extra is not None:
+        return np.concatenate([basis(x, degree), extra], axis=1)
     if a == 1:
         return np.stack([x[:, 0] ** p for p in range(degree + 1)], axis=1)
     s = -np.sort(-x, axis=1)
@@ -83,10 +87,13 @@ def basis(x: np.ndarray, degree: int) -> np.ndarray:
 
 
 def fit_policy(dates: tuple[date, ...], levels: np.ndarray, values: np.ndarray,
-               dfs: np.ndarray, degree: int) -> ExercisePolicy:
+               dfs: np.ndarray, degree: int, extra: np.ndarray | None = None,
+               floor: np.ndarray | None = None) -> ExercisePolicy:
     """Backward induction on pilot paths: ``levels`` (paths, assets, dates) normalised,
     ``values`` (paths, dates) the payoff of exercising on each date, ``dfs`` (dates,) the
-    discount factors to each date. The last date exercises whenever in the money."""
+    discount factors to each date, ``extra`` (paths, k, dates) more basis columns, ``floor``
+    (paths, dates) a value holding on is known to be worth at least (no exercise below it).
+    The last date exercises whenever in the money."""
     n, _, m = levels.shape
     cash = values[:, -1] * dfs[-1]  # each path's discounted cash under the later policy
     coefs: list[np.ndarray | None] = [None] * m
@@ -96,7 +103,7 @@ def fit_policy(dates: tuple[date, ...], levels: np.ndarray, values: np.ndarray,
         itm = ev > 0
         if np.count_nonzero(itm) < MIN_ITM:
             continue
-        b = basis(levels[itm, :, k], degree)
+        b = basis(levels[itm, :, k], degree, None if extra is None else extra[itm, :, k])
         scale = np.maximum(np.abs(b).max(axis=0), 1e-300)
         y = cash[itm] / dfs[k]
         sol, _, rank, sv = np.linalg.lstsq(b / scale, y, rcond=None)
@@ -104,13 +111,16 @@ def fit_policy(dates: tuple[date, ...], levels: np.ndarray, values: np.ndarray,
         c = sol / scale
         coefs[k] = c
         go = ev[itm] >= b @ c
+        if floor is not None:
+            go &= ev[itm] > floor[itm, k]
         idx = np.flatnonzero(itm)[go]
         cash[idx] = ev[idx] * dfs[k]
     return ExercisePolicy(tuple(dates), tuple(coefs), tuple(conds), n, degree)
 
 
 def apply_policy(policy: ExercisePolicy, dates: tuple[date, ...], levels: np.ndarray,
-                 values: np.ndarray, dfs: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+                 values: np.ndarray, dfs: np.ndarray, extra: np.ndarray | None = None,
+                 floor: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
     """Forward on pricing paths: the discounted cash of each path and the index of the date it
     exercises on (-1: never, out of the money at the last date)."""
     n, _, m = levels.shape
@@ -125,7 +135,10 @@ def apply_policy(policy: ExercisePolicy, dates: tuple[date, ...], levels: np.nda
             if c is None:
                 continue
             idx = np.flatnonzero(cand)
-            go = ev[idx] >= basis(levels[idx, :, k], policy.degree) @ c
+            go = ev[idx] >= basis(levels[idx, :, k], policy.degree,
+                                  None if extra is None else extra[idx, :, k]) @ c
+            if floor is not None:
+                go &= ev[idx] > floor[idx, k]
             idx = idx[go]
         else:
             idx = np.flatnonzero(cand)
@@ -196,11 +209,26 @@ class EarlyExercise(Product):
         the initial levels)."""
         raise NotImplementedError
 
+    def features(self, levels: np.ndarray, dates, market) -> np.ndarray | None:
+        """More basis columns, (paths, k, dates), beside the levels' powers; none by
+        default."""
+        return None
+
     def _state(self, paths: PathSet):
         dates = self.decision_dates(paths)
         levels = np.stack([np.exp(paths.log_levels_at(d)) for d in dates], axis=2)
         dfs = np.array([paths.df(d) for d in dates])
         return dates, levels, self.exercise_values(levels, paths.market), dfs
+
+    def floor(self, levels: np.ndarray, dates, market) -> np.ndarray | None:
+        """(paths, dates): a value holding on is known to be worth at least, on each date (no
+        exercise where the payoff does not beat it); none by default."""
+        return None
+
+    def regressors(self, levels: np.ndarray, dates, market):
+        """The normalised levels, the extra basis columns and the floor the policy reads."""
+        return (self.normalise(levels, market), self.features(levels, dates, market),
+                self.floor(levels, dates, market))
 
     def pilot_paths(self) -> int:
         return self.pilot if self.policy is None else 0
@@ -209,16 +237,16 @@ class EarlyExercise(Product):
         import dataclasses
 
         dates, levels, values, dfs = self._state(pilot)
-        policy = fit_policy(dates, self.normalise(levels, pilot.market), values, dfs,
-                            self.basis_degree)
+        x, extra, floor = self.regressors(levels, dates, pilot.market)
+        policy = fit_policy(dates, x, values, dfs, self.basis_degree, extra, floor)
         return dataclasses.replace(self, policy=policy)
 
     def evaluate(self, paths: PathSet) -> tuple[np.ndarray, dict[str, np.ndarray]]:
         if self.policy is None:
             raise InputError("an early-exercise product must be fitted before pricing")
         dates, levels, values, dfs = self._state(paths)
-        cash, when = apply_policy(self.policy, dates, self.normalise(levels, paths.market),
-                                  values, dfs)
+        x, extra, floor = self.regressors(levels, dates, paths.market)
+        cash, when = apply_policy(self.policy, dates, x, values, dfs, extra, floor)
         diag: dict[str, np.ndarray] = {}
         t = np.array([paths.market.time(d) for d in dates])
         life = np.where(when >= 0, t[np.maximum(when, 0)], t[-1] if len(t) else 0.0)
@@ -302,6 +330,37 @@ class American(EarlyExercise):
     def normalise(self, levels: np.ndarray, market) -> np.ndarray:
         return levels / self.strike
 
+    def floor(self, levels: np.ndarray, dates, market) -> np.ndarray:
+        """Holding on is worth at least the European option to expiry (the holder may always
+        wait): early exercise only where the payoff beats it (never, for a call without
+        dividends or a put at a negative rate). From :meth:`features`, on Black's formula."""
+        return self.features(levels, dates, market)[:, 0, :] * self.strike
+
+    def features(self, levels: np.ndarray, dates, market) -> np.ndarray:
+        """The value of the same option exercisable at expiry only, from each date (Black's
+        formula on the asset's term structure and forwards), over the strike: holding on is
+        worth at least that, and where early exercise is worth nothing (a call without
+        dividends) it is the continuation value itself."""
+        from fairpath.closed_form import black_lognormal
+
+        vol = market.asset(self.asset).vol
+        big_t = market.time(self.expiry)
+        fwd_t = float(market.forward(self.asset, big_t))
+        out = np.zeros((levels.shape[0], 1, len(dates)))
+        for k, d in enumerate(dates):
+            t = market.time(d)
+            if not t < big_t:
+                continue
+            w = float(vol.implied(big_t)) ** 2 * big_t - float(vol.implied(t)) ** 2 * t \
+                if t > 0 else float(vol.implied(big_t)) ** 2 * big_t
+            growth = fwd_t / float(market.forward(self.asset, t)) if t > 0 else \
+                fwd_t / market.asset(self.asset).spot
+            df = float(market.df(self.expiry)) / float(market.df(d))
+            out[:, 0, k] = np.asarray(black_lognormal(levels[:, 0, k] * growth, self.strike,
+                                                      max(w, 1e-12), df, self.right)) / \
+                self.strike
+        return out
+
 
 @dataclass(frozen=True, slots=True)
 class BermudanBasket(EarlyExercise):
@@ -309,7 +368,7 @@ class BermudanBasket(EarlyExercise):
     the basket payoff on any of ``exercise_dates`` or at expiry: ``kind = "basket"`` with
     ``exercise_dates`` (e.g. a Bermudan max-call, ``combine = "best"``)."""
 
-    kind: ClassVar[str] = ""  # read as a "basket" (Basket.for_terms picks this class)
+    kind: ClassVar[str] = ""  # read as a "basket" with exercise_dates (see VARIANTS below)
 
     assets: tuple[str, ...] = field(kw_only=True)
     combine: str = field(kw_only=True)
@@ -329,16 +388,12 @@ class BermudanBasket(EarlyExercise):
 
     def terms(self):
         """The same basket exercised only at expiry (its terms checked)."""
-        from fairpath.products.basket import Basket
-
         return Basket(assets=self.assets, combine=self.combine, right=self.right,
                       strike_level=self.strike_level, expiry=self.expiry, weights=self.weights,
                       notional=self.notional, initial_levels=self.initial_levels)
 
     @classmethod
     def from_table(cls, tab) -> dict:
-        from fairpath.products.basket import Basket
-
         return {**Basket.from_table(tab), **exercise_keys(tab)}
 
     @property
@@ -390,3 +445,6 @@ def exercise_keys(tab) -> dict:
     if tab.has("basis_degree"):
         out["basis_degree"] = tab.integer("basis_degree", minimum=1)
     return out
+
+
+VARIANTS[(Basket.kind, "exercise_dates")] = BermudanBasket
