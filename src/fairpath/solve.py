@@ -121,7 +121,8 @@ def solve(product: Product, market: Market, key: str, target: float, *,
     def with_value(x: float) -> Product:
         return dataclasses.replace(product, **{key: x})
 
-    if key in LINEAR_KEYS.get(product.kind, ()):
+    # linear only while nothing decides on the paths (an issuer's call moves with the coupon)
+    if key in LINEAR_KEYS.get(product.kind, ()) and not product.pilot_paths():
         # the controlled estimate is linear in the coupon when every run uses the same control
         # set (the regression coefficient is then linear too): take the set the zero-coupon
         # run prefers and impose it on the end points and on the repricing

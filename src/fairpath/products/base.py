@@ -177,7 +177,9 @@ class Product:
 
     def __init_subclass__(cls, **kwargs):
         super(Product, cls).__init_subclass__(**kwargs)
-        if cls.__dict__.get("kind"):
+        # (twice for a slotted dataclass: the slotted class replaces the first); a variant of
+        # a kind (VARIANTS) leaves the kind's class registered
+        if cls.__dict__.get("kind") and not cls.__dict__.get("variant"):
             REGISTRY[cls.kind] = cls
 
     @classmethod

@@ -368,7 +368,9 @@ class BermudanBasket(EarlyExercise):
     the basket payoff on any of ``exercise_dates`` or at expiry: ``kind = "basket"`` with
     ``exercise_dates`` (e.g. a Bermudan max-call, ``combine = "best"``)."""
 
-    kind: ClassVar[str] = ""  # read as a "basket" with exercise_dates (see VARIANTS below)
+    #: a "basket" with exercise_dates (a variant: the registry keeps Basket for the kind)
+    kind: ClassVar[str] = "basket"
+    variant: ClassVar[bool] = True
 
     assets: tuple[str, ...] = field(kw_only=True)
     combine: str = field(kw_only=True)
