@@ -330,34 +330,40 @@ class American(EarlyExercise):
     def normalise(self, levels: np.ndarray, market) -> np.ndarray:
         return levels / self.strike
 
-    def floor(self, levels: np.ndarray, dates, market) -> np.ndarray:
-        """Holding on is worth at least the European option to expiry (the holder may always
-        wait): early exercise only where the payoff beats it (never, for a call without
-        dividends or a put at a negative rate). From :meth:`features`, on Black's formula."""
-        return self.features(levels, dates, market)[:, 0, :] * self.strike
+    def regressors(self, levels: np.ndarray, dates, market):
+        """The levels over the strike, and the European to expiry (see :meth:`features`) as
+        the extra column and, times the strike, the floor: holding on is worth at least the
+        European option (the holder may always wait), so the policy exercises only where the
+        payoff beats it (never, for a call without dividends or a put at a negative rate)."""
+        extra = self.features(levels, dates, market)
+        return self.normalise(levels, market), extra, extra[:, 0, :] * self.strike
 
     def features(self, levels: np.ndarray, dates, market) -> np.ndarray:
         """The value of the same option exercisable at expiry only, from each date (Black's
-        formula on the asset's term structure and forwards), over the strike: holding on is
-        worth at least that, and where early exercise is worth nothing (a call without
-        dividends) it is the continuation value itself."""
+        formula on the asset's term structure and forwards), over the strike, on the paths in
+        the money (the only ones the policy decides on; 0 elsewhere): holding on is worth at
+        least that, and where early exercise is worth nothing (a call without dividends) it is
+        the continuation value itself."""
         from fairpath.closed_form import black_lognormal
 
         vol = market.asset(self.asset).vol
         big_t = market.time(self.expiry)
         fwd_t = float(market.forward(self.asset, big_t))
+        w_t = float(vol.implied(big_t)) ** 2 * big_t
         out = np.zeros((levels.shape[0], 1, len(dates)))
+        s = levels[:, 0, :]
+        itm = s > self.strike if self.right == "call" else s < self.strike
         for k, d in enumerate(dates):
             t = market.time(d)
             if not t < big_t:
                 continue
-            w = float(vol.implied(big_t)) ** 2 * big_t - float(vol.implied(t)) ** 2 * t \
-                if t > 0 else float(vol.implied(big_t)) ** 2 * big_t
+            idx = np.flatnonzero(itm[:, k])
+            w = w_t - float(vol.implied(t)) ** 2 * t if t > 0 else w_t
             growth = fwd_t / float(market.forward(self.asset, t)) if t > 0 else \
                 fwd_t / market.asset(self.asset).spot
             df = float(market.df(self.expiry)) / float(market.df(d))
-            out[:, 0, k] = np.asarray(black_lognormal(levels[:, 0, k] * growth, self.strike,
-                                                      max(w, 1e-12), df, self.right)) / \
+            out[idx, 0, k] = np.asarray(black_lognormal(s[idx, k] * growth, self.strike,
+                                                        max(w, 1e-12), df, self.right)) / \
                 self.strike
         return out
 
