@@ -26,7 +26,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from fairpath.errors import InputError
-from fairpath.products.exercise import EarlyExercise, apply_policy, basis
+from fairpath.products.exercise import EarlyExercise, apply_policy, exercised
 
 #: Outer paths, and inner paths per outer path and date: the inner estimates' noise biases the
 #: bound upwards (measured on Longstaff and Schwartz's weekly Bermudan put at S = 36, 128 outer
@@ -110,22 +110,12 @@ def dual_bounds(product, market, lower: float, lower_se: float, *, seed: int | N
         cont[:, k] = _inner_values(product, market, stepper, ps.grid_log_levels[:, :, cols[k]],
                                    cols[k], dates[k + 1:], cols[k + 1:], dfs[k + 1:],
                                    inner, rng) * product.size
-    exercise = np.zeros((outer, m), dtype=bool)
+    exercise = np.zeros((outer, m), dtype=bool)  # where the policy would exercise, each date
     for k, d in enumerate(dates):
         ev = values[:, k]
-        if k == m - 1:
-            exercise[:, k] = ev > 0
-            continue
-        c = product.policy.coef(d)
-        if c is None:
-            continue
-        itm = ev > 0
-        idx = np.flatnonzero(itm)
-        go = ev[idx] >= basis(norm[idx, :, k], product.policy.degree,
-                              None if extra is None else extra[idx, :, k]) @ c
-        if floor is not None:
-            go &= ev[idx] > floor[idx, k]
-        exercise[idx, k] = go
+        exercise[exercised(product.policy, d, k == m - 1, ev, norm[:, :, k],
+                           None if extra is None else extra[:, :, k],
+                           None if floor is None else floor[:, k], ev > 0), k] = True
     value = np.where(exercise, h, cont)  # L_k
     prev = np.concatenate([np.full((outer, 1), lower), cont[:, :-1]], axis=1)  # C_{k-1}
     # the martingale started at the lower bound (Andersen and Broadie's pi_0 = L_0): the excess

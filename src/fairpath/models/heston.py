@@ -42,6 +42,7 @@ from typing import ClassVar
 import numpy as np
 from numba import njit
 
+from fairpath.calibration import heston_for
 from fairpath.errors import InputError
 from fairpath.kernels import _active
 from fairpath.market import integrate_vol_product
@@ -82,7 +83,7 @@ class Heston(Model):
 
     @classmethod
     def for_asset(cls, market, name):
-        return cls(name, market, heston_params(market, name))
+        return cls(name, market, heston_for(market, name))
 
     @property
     def capabilities(self) -> frozenset[Capability]:
@@ -145,21 +146,6 @@ def stepping_code(m: Model) -> int:
     if m.kind == "lsv":
         return LSV
     return LOCAL if m.kind == "local-vol" else BLACK
-
-
-def heston_params(market, name: str) -> HestonParams:
-    """The asset's Heston parameters: its file's, else fitted to its surface (cached)."""
-    a = market.asset(name)
-    if a.heston is not None:
-        return a.heston
-    if a.surface is None:
-        raise InputError(f"the Heston model of {name} needs its parameters: give [assets."
-                         f"{name}.heston] (v0, kappa, theta, vol_of_vol, spot_vol_correlation)"
-                         " or a vol_surface to calibrate them to", source=market.source,
-                         key=f"assets.{name}.heston")
-    from fairpath.calibration import heston_for
-
-    return heston_for(market, name)
 
 
 def qe_coefficients(p: HestonParams, dt: np.ndarray, xi: float | None = None) -> np.ndarray:

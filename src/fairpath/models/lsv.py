@@ -39,6 +39,7 @@ import numpy as np
 from numba import njit
 
 from fairpath import sobol
+from fairpath.calibration import heston_for
 from fairpath.errors import InputError
 from fairpath.models.base import Model
 from fairpath.models.black import check_lognormal_tail
@@ -46,7 +47,6 @@ from fairpath.models.heston import (
     LSV_REFINE,
     StochSteps,
     _qe,
-    heston_params,
     qe_coefficients,
 )
 from fairpath.registry import Capability
@@ -87,7 +87,7 @@ class LocalStochasticVol(Model):
                              "function is calibrated to reprice it), and it has none",
                              source=market.source, key=f"assets.{name}.model")
         mixing = DEFAULT_MIXING if a.mixing is None else a.mixing
-        return cls(name, market, heston_params(market, name), mixing, a.mixing is not None)
+        return cls(name, market, heston_for(market, name), mixing, a.mixing is not None)
 
     @property
     def capabilities(self) -> frozenset[Capability]:

@@ -44,7 +44,7 @@ from fairpath.products.base import (
     read_asset_names,
     read_initial_levels,
 )
-from fairpath.products.vanilla import RIGHTS
+from fairpath.products.vanilla import RIGHTS, intrinsic
 from fairpath.registry import Capability, Estimator, Shortcut, register_shortcut
 
 COMBINES = ("worst", "best", "average")
@@ -157,8 +157,16 @@ class Basket(Product):
         market.correlation_matrix(self.assets, source=source, key="assets")
 
     def _option(self, level: np.ndarray) -> np.ndarray:
-        k = self.strike_level
-        return np.maximum(level - k, 0.0) if self.right == "call" else np.maximum(k - level, 0.0)
+        return intrinsic(self.right, self.strike_level, level)
+
+    def combined(self, perf: np.ndarray) -> np.ndarray:
+        """The basket's level from the performances (paths, assets): worst, best or the
+        weighted average."""
+        if self.combine == "worst":
+            return perf.min(axis=1)
+        if self.combine == "best":
+            return perf.max(axis=1)
+        return perf @ np.asarray(self.basket_weights)
 
     @property
     def basket_weights(self) -> tuple[float, ...]:
@@ -184,13 +192,7 @@ class Basket(Product):
         return ps.levels[:, :, -1] / self.initial(ps.market)
 
     def raw_payoff(self, paths: PathSet) -> np.ndarray:
-        perf = self.performances(paths)
-        if self.combine == "worst":
-            level = perf.min(axis=1)
-        elif self.combine == "best":
-            level = perf.max(axis=1)
-        else:
-            level = perf @ np.asarray(self.basket_weights)
+        level = self.combined(self.performances(paths))
         return self._option(level) * (paths.df(self.expiry) * self.notional)
 
     def payoff(self, paths: PathSet) -> np.ndarray:

@@ -36,6 +36,7 @@ from fairpath.errors import InputError
 from fairpath.inputs import MAX_AMOUNT
 from fairpath.products.base import VARIANTS, PathSet, Product, single_asset_quantity
 from fairpath.products.basket import Basket
+from fairpath.products.vanilla import intrinsic
 
 #: Pilot paths of the regression when the product does not say (measured: see docs/products.md)
 DEFAULT_PILOT = 1 << 15
@@ -118,6 +119,26 @@ def fit_policy(dates: tuple[date, ...], levels: np.ndarray, values: np.ndarray,
     return ExercisePolicy(tuple(dates), tuple(coefs), tuple(conds), n, degree)
 
 
+def exercised(policy: ExercisePolicy, d: date, last: bool, ev: np.ndarray, x: np.ndarray,
+              extra: np.ndarray | None, floor: np.ndarray | None,
+              cand: np.ndarray) -> np.ndarray:
+    """The indices among the paths ``cand`` (bool: in the money, not yet exercised) where the
+    frozen policy exercises on date ``d``, given that date's payoffs ``ev``, normalised levels
+    ``x`` (paths, assets), extra columns (paths, k) and floor (paths,): all of them on the last
+    date, none where the date has no fit, else where the payoff beats the fitted continuation
+    value (and the floor)."""
+    idx = np.flatnonzero(cand)
+    if last:
+        return idx
+    c = policy.coef(d)
+    if c is None:
+        return idx[:0]
+    go = ev[idx] >= basis(x[idx], policy.degree, None if extra is None else extra[idx]) @ c
+    if floor is not None:
+        go &= ev[idx] > floor[idx]
+    return idx[go]
+
+
 def apply_policy(policy: ExercisePolicy, dates: tuple[date, ...], levels: np.ndarray,
                  values: np.ndarray, dfs: np.ndarray, extra: np.ndarray | None = None,
                  floor: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
@@ -129,19 +150,9 @@ def apply_policy(policy: ExercisePolicy, dates: tuple[date, ...], levels: np.nda
     alive = np.ones(n, dtype=bool)
     for k, d in enumerate(dates):
         ev = values[:, k]
-        cand = alive & (ev > 0)
-        if k < m - 1:
-            c = policy.coef(d)
-            if c is None:
-                continue
-            idx = np.flatnonzero(cand)
-            go = ev[idx] >= basis(levels[idx, :, k], policy.degree,
-                                  None if extra is None else extra[idx, :, k]) @ c
-            if floor is not None:
-                go &= ev[idx] > floor[idx, k]
-            idx = idx[go]
-        else:
-            idx = np.flatnonzero(cand)
+        idx = exercised(policy, d, k == m - 1, ev, levels[:, :, k],
+                        None if extra is None else extra[:, :, k],
+                        None if floor is None else floor[:, k], alive & (ev > 0))
         cash[idx] = ev[idx] * dfs[k]
         when[idx] = k
         alive[idx] = False
@@ -323,9 +334,7 @@ class American(EarlyExercise):
         return self.quantity
 
     def exercise_values(self, levels: np.ndarray, market) -> np.ndarray:
-        s = levels[:, 0, :]
-        return np.maximum(s - self.strike, 0.0) if self.right == "call" else \
-            np.maximum(self.strike - s, 0.0)
+        return intrinsic(self.right, self.strike, levels[:, 0, :])
 
     def normalise(self, levels: np.ndarray, market) -> np.ndarray:
         return levels / self.strike
@@ -430,15 +439,10 @@ class BermudanBasket(EarlyExercise):
         return levels / self.terms().initial(market)[None, :, None]
 
     def exercise_values(self, levels: np.ndarray, market) -> np.ndarray:
+        terms = self.terms()
         perf = self.normalise(levels, market)
-        if self.combine == "worst":
-            level = perf.min(axis=1)
-        elif self.combine == "best":
-            level = perf.max(axis=1)
-        else:
-            level = np.einsum("pad,a->pd", perf, np.asarray(self.terms().basket_weights))
-        k = self.strike_level
-        return np.maximum(level - k, 0.0) if self.right == "call" else np.maximum(k - level, 0.0)
+        return np.stack([terms._option(terms.combined(perf[:, :, k]))
+                         for k in range(perf.shape[2])], axis=1)
 
 
 def exercise_keys(tab) -> dict:

@@ -23,6 +23,13 @@ from fairpath.registry import Capability, Estimator, Shortcut, register_shortcut
 RIGHTS = ("call", "put")
 
 
+def intrinsic(right: str, strike: float, s: np.ndarray) -> np.ndarray:
+    """``max(s - strike, 0)`` for a call, ``max(strike - s, 0)`` for a put."""
+    if right == "call":
+        return np.maximum(s - strike, 0.0)
+    return np.maximum(strike - s, 0.0)
+
+
 @dataclass(frozen=True, slots=True)
 class OneAssetAtExpiry(Product):
     """Shared terms of a payoff on one asset's level at expiry (``right``, ``strike``)."""
@@ -61,9 +68,7 @@ class European(OneAssetAtExpiry):
     kind: ClassVar[str] = "european"
 
     def intrinsic(self, s: np.ndarray) -> np.ndarray:
-        if self.right == "call":
-            return np.maximum(s - self.strike, 0.0)
-        return np.maximum(self.strike - s, 0.0)
+        return intrinsic(self.right, self.strike, s)
 
     def payoff(self, paths: PathSet) -> np.ndarray:
         s = paths.levels[:, 0, 0]
