@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import math
 import subprocess
+import time
 from pathlib import Path
 
 import numpy as np
@@ -92,3 +93,10 @@ def pooled(rows: list[dict], claimed: dict) -> dict[str, dict]:
             "p_beyond4": float(stats.binom.sf(k4 - 1, n, p4)) if k4 else 1.0,
             "max_abs_z": max((s["max_abs_z"] or 0.0) for s in these)}
     return out
+
+
+def timed(fn) -> tuple[float, object]:
+    """Seconds ``fn()`` takes, and what it returns."""
+    t = time.perf_counter()
+    out = fn()
+    return time.perf_counter() - t, out

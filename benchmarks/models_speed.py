@@ -20,11 +20,11 @@ import argparse
 import json
 import os
 import statistics
-import time
 import warnings
 
 # before fairpath: importing it makes numba look for the code-coverage package, which finds
 # coverage.py in this folder, and that script takes the folder off the import path
+from benchmark_tools import timed
 from greeks_threads import demo_note, yardstick
 
 import fairpath as fp
@@ -32,12 +32,6 @@ from fairpath import calibration
 from fairpath.models import lsv
 
 TARGETS = {"heston": 2.0, "lsv": 3.0}
-
-
-def timed(fn) -> tuple[float, object]:
-    t = time.perf_counter()
-    out = fn()
-    return time.perf_counter() - t, out
 
 
 def main() -> None:
