@@ -168,6 +168,70 @@ def test_longstaff_schwartz_duality_brackets_quantlib_fd(spot, vol, years):
     assert up["value"] - lo["value"] < 0.05, b
 
 
+# Duality under local volatility: the inner paths restart from each outer path's level through
+# the local-vol stepper (fairpath.models.local_vol.LocalSteps.restart). On a flat surface the
+# local vol is the flat vol and the log-Euler steps are exact, so the bounds must bracket the
+# same QuantLib finite-difference value as under Black.
+FLAT_SURFACE_TOML = """valuation_date = 2026-12-01
+currency = "EUR"
+[discount]
+tenors = ["1Y", "2Y"]
+zero_rates = [0.06, 0.06]
+[assets.NORDA]
+spot = 36.0
+[assets.NORDA.vol_surface]
+tenors = ["6M", "1Y", "2Y"]
+strikes = [0.5, 0.8, 1.0, 1.25, 1.6]
+vols = [[0.2, 0.2, 0.2, 0.2, 0.2], [0.2, 0.2, 0.2, 0.2, 0.2], [0.2, 0.2, 0.2, 0.2, 0.2]]
+"""
+
+
+def test_duality_under_local_vol_brackets_quantlib_fd(tmp_path):
+    from fairpath.duality import dual_bounds
+
+    path = tmp_path / "flat_surface.toml"
+    path.write_text(FLAT_SURFACE_TOML)
+    mkt = fp.load_market(path)
+    ref = ql_fd_bermudan_put(36, 0.2, 1)  # QuantLib FdBlackScholesVanillaEngine
+    res = fp.price(ls_put(1), mkt, seed=2004)
+    assert any("local volatility" in n for n in res.notes)  # priced under local vol
+    product, m = res.context[0], res.context[1]
+    b = dual_bounds(product, m, res.price, res.stderr, seed=2004, outer=64).to_dict()
+    lo, up = b["lower"], b["upper"]
+    # Andersen and Broadie (2004): the bounds bracket the finite-difference value, each
+    # within 3 of its standard errors, and the gap stays under 0.05 as under Black
+    assert lo["value"] - 3 * lo["stderr"] <= ref <= up["value"] + 3 * up["stderr"], (b, ref)
+    assert up["value"] - lo["value"] < 0.05, b
+
+
+@pytest.mark.parametrize("model", ["local-vol", "black"])
+def test_restarted_paths_keep_the_forward_with_cash_dividends(model):
+    # the inner paths of the duality restart from a level; restarted from today's escrowed
+    # spot, their mean level on each later date must be the market's forward (the escrowed
+    # part a martingale after its drift, plus the dividends to come): 4 standard errors
+    import numpy as np
+
+    from fairpath.engine import Simulation
+    from fairpath.sampling import make_sampler
+
+    mkt = fp.load_market("markets/demo_smile.toml")
+    mkt = mkt.with_model(model)
+    prod = product_from_dict({"kind": "european", "asset": "NORDA", "right": "call",
+                              "strike": 60.0, "expiry": date(2028, 6, 1)})
+    sim = Simulation([prod], mkt, make_sampler("pseudo", seed=1), [[]], None, 1)
+    st = sim.stepper
+    assert st.escrow is not None  # NORDA pays cash dividends on this market
+    n = 20000
+    x0 = np.tile(st.log_start, (n, 1))
+    last = len(sim.grid_dates) - 1
+    x = st.restart(x0, -1, last, np.random.default_rng(7))
+    for col in (last // 3, last):
+        level = np.exp(x[:, 0, col]) + st.escrow[0, col]
+        fwd = float(mkt.forward("NORDA", mkt.time(sim.grid_dates[col])))
+        se = level.std(ddof=1) / math.sqrt(n)
+        assert abs(level.mean() - fwd) <= 4 * se, (col, level.mean(), fwd, se)
+
+
 # --------------------------------------------------------------------------- Andersen-Broadie
 AB_DATES = tuple(VAL + timedelta(days=round(365 * k / 3)) for k in range(1, 10))
 # Andersen and Broadie (2004), two-asset max-call (r 5%, q 10%, vol 20%, rho 0, K 100, 3y,
@@ -365,4 +429,31 @@ def test_bad_input_is_one_line_exit_2(case, tmp_path, capsys):
     (tmp_path / "p.toml").write_text(text)
     code, out, err = run(["price", tmp_path / "p.toml", "--market", tmp_path / "m.toml",
                           "--paths", "4096"], capsys)
+    assert_bad_input(code, out, err, *fragments)
+
+
+DUAL_REFUSED = {
+    # --dual on a product with no exercise decision
+    "european": ('kind = "european"\nasset = "NORDA"\nright = "put"\nstrike = 40.0\n'
+                 "expiry = 2027-12-01\n", [], ("--dual", "American options")),
+    # Heston's state is the level and the variance: its paths cannot restart from a level
+    "heston": (AMERICAN + 'strike = 40.0\nexercise_dates = { dates = [2027-06-01, 2027-12-01] }\n',
+               [], ("--dual", "heston", "black and local-vol")),
+    # every weekday: more exercise dates than the nested simulation takes
+    "every weekday": (AMERICAN + "strike = 40.0\n", [], ("--dual", "exercise_dates")),
+}
+
+HESTON_TOML = MARKET_TOML.replace("vol = 0.2\n", "vol = 0.2\nmodel = \"heston\"\n"
+                                  "[assets.NORDA.heston]\n"
+                                  "v0 = 0.04\ntheta = 0.04\nkappa = 1.5\nvol_of_vol = 0.3\n"
+                                  "spot_vol_correlation = -0.5\n", 1)
+
+
+@pytest.mark.parametrize("case", sorted(DUAL_REFUSED))
+def test_dual_where_it_cannot_apply_is_one_line_exit_2(case, tmp_path, capsys):
+    text, extra, fragments = DUAL_REFUSED[case]
+    (tmp_path / "m.toml").write_text(HESTON_TOML if case == "heston" else MARKET_TOML)
+    (tmp_path / "p.toml").write_text(text)
+    code, out, err = run(["price", tmp_path / "p.toml", "--market", tmp_path / "m.toml",
+                          "--paths", "4096", "--dual", *extra], capsys)
     assert_bad_input(code, out, err, *fragments)

@@ -13,9 +13,11 @@ under the frozen policy. The upper bound is ``C_0 + mean(max_k (h_k - M_k))``; i
 error combines the outer paths' spread with the lower bound's. The inner estimates' noise
 only raises the bound (Jensen), so it stays an upper bound.
 
-The inner paths restart from a state on the grid, which needs the model's step law from any
-date: here the exact Gaussian steps of Black's model (lognormal levels without cash
-dividends); other models are refused with one line.
+The inner paths restart from a state on the grid (:meth:`Stepper.restart`), which needs a
+model whose state is the levels: Black's exact steps (with or without cash dividends: the
+escrowed part restarts) and local volatility (log-Euler steps from the outer path's level, on
+the same steps as the pricing run). Heston and LSV carry a variance as well, and a law of
+returns reads its own shocks: those are refused with one line.
 """
 
 from __future__ import annotations
@@ -38,6 +40,8 @@ DEFAULT_INNER = 1024
 MAX_DATES = 120
 #: The outer and inner paths' random stream (never a pricing or pilot path)
 DUAL_STREAM = 0x7FFFFFFB
+#: Models whose paths restart from the levels alone (:meth:`Stepper.restart`)
+RESTARTS = ("black", "local-vol")
 
 
 @dataclass(frozen=True, slots=True)
@@ -63,17 +67,17 @@ def check_dual(product, market, source: str | None = None) -> None:
     """Refuse --dual, before any pricing, where it cannot apply (see :func:`dual_bounds`)."""
     from fairpath.dates import weekdays_between
     from fairpath.models import ModelSet
-    from fairpath.models.black import Black
-    from fairpath.registry import Capability
 
     if not isinstance(product, EarlyExercise):
         raise InputError("applies only to American options and Bermudan baskets",
                          source=source, key="--dual")
     models = ModelSet.resolve(market, product.underlyings(), source=source)
-    if models.host() is not Black or Capability.LOGNORMAL not in models.capabilities:
-        raise InputError("restarts paths from any date, which needs Black's exact steps "
-                         "without cash dividends; these assets' models do not allow it",
-                         source=source, key="--dual")
+    kinds = sorted({m.kind for m in models.models} - set(RESTARTS))
+    if kinds:
+        raise InputError(f"restarts paths from the levels on each exercise date, which the "
+                         f"{', '.join(kinds)} model cannot (its state is more than the levels); "
+                         f"it works under {' and '.join(RESTARTS)}", source=source,
+                         key="--dual")
     n = len(weekdays_between(market.valuation_date, product.expiry)) \
         if product.exercise_dates is None else len(product.observation_dates())
     if n > MAX_DATES:
@@ -127,26 +131,24 @@ def dual_bounds(product, market, lower: float, lower_se: float, *, seed: int | N
     return Bounds(lower, lower_se, upper, se, outer, inner)
 
 
-def _inner_values(product, market, stepper, x0: np.ndarray, col: int, dates, cols, dfs,
-                  inner: int, rng) -> np.ndarray:
-    """Per outer path: the mean discounted cash of ``inner`` paths restarted from its escrowed
-    log-levels ``x0`` (outer, assets) at grid column ``col`` and exercised by the frozen
-    policy on ``dates`` (grid columns ``cols``)."""
-    n_out, n_a = x0.shape
+def _inner_values(product, market, stepper, log_levels: np.ndarray, col: int, dates, cols,
+                  dfs, inner: int, rng) -> np.ndarray:
+    """Per outer path: the mean discounted cash of ``inner`` paths restarted from its
+    log-levels ``log_levels`` (outer, assets) at grid column ``col`` and exercised by the
+    frozen policy on ``dates`` (grid columns ``cols``)."""
+    n_out, n_a = log_levels.shape
     last = cols[-1]
+    escrow = stepper.escrow
+    x0 = log_levels if escrow is None else np.log(np.exp(log_levels) - escrow[None, :, col])
+    take = np.asarray(cols) - col - 1
     out = np.empty(n_out)
     chunk = max(1, (1 << 16) // inner)
     for o0 in range(0, n_out, chunk):
         o1 = min(o0 + chunk, n_out)
-        x = np.repeat(x0[o0:o1], inner, axis=0)  # (paths, assets)
-        levels = np.empty((x.shape[0], n_a, len(cols)))
-        j = 0
-        for g in range(col + 1, last + 1):
-            z = rng.standard_normal((x.shape[0], n_a))
-            x = x + stepper.drift[:, g][None, :] + z @ stepper.factor[g].T
-            if g == cols[j]:
-                levels[:, :, j] = np.exp(x)
-                j += 1
+        x = stepper.restart(np.repeat(x0[o0:o1], inner, axis=0), col, last, rng)
+        levels = np.exp(x[:, :, take])
+        if escrow is not None:
+            levels += escrow[None, :, cols]
         values = product.exercise_values(levels, market)
         x, extra, floor = product.regressors(levels, tuple(dates), market)
         cash, _ = apply_policy(product.policy, tuple(dates), x, values, np.asarray(dfs), extra,

@@ -362,7 +362,7 @@ def _local_vol_paths(z, out, col_of, corr, log_fwd, lv_sd, lv_y0, lv_inv_dy, gbm
     x = np.empty((n, n_a))
     for p in range(n):
         for a in range(n_a):
-            x[p, a] = log_x0[a]
+            x[p, a] = log_x0[p, a]
     # step by step across a tile of paths: a step's row of the table stays in cache for all
     # of them, and so do the tile's normals of the next few steps
     for p0 in range(0, n, LV_TILE):
@@ -407,9 +407,12 @@ def local_vol_paths(z: np.ndarray, corr: np.ndarray, log_fwd: np.ndarray, lv_sd:
     ``lv_sd`` (assets, steps, y points) each local-vol asset's step standard deviation (local
     vol times the root of the step) on a uniform grid of forward log-moneyness from ``lv_y0``
     by ``lv_dy`` (linear interpolation, flat beyond); ``gbm_sd`` (assets, steps) the others';
-    ``active`` (default: all) the assets to step (the rows of the others are left empty)."""
+    ``active`` (default: all) the assets to step (the rows of the others are left empty);
+    ``log_x0`` the start, (assets,) or per path (paths, assets)."""
     z = np.ascontiguousarray(z, dtype=np.float64)
     n, n_a, n_s = z.shape
+    log_x0 = np.ascontiguousarray(np.broadcast_to(np.asarray(log_x0, dtype=np.float64),
+                                                  (n, n_a)))
     col_of = np.full(n_s, -1, dtype=np.int64)
     if cols is None:
         cols = np.arange(n_s)
@@ -422,8 +425,7 @@ def local_vol_paths(z: np.ndarray, corr: np.ndarray, log_fwd: np.ndarray, lv_sd:
                      np.ascontiguousarray(1.0 / np.asarray(lv_dy, dtype=np.float64)),
                      np.ascontiguousarray(gbm_sd, dtype=np.float64),
                      np.ascontiguousarray(is_lv, dtype=np.bool_),
-                     np.ascontiguousarray(log_x0, dtype=np.float64),
-                     _active(active, n_a))
+                     log_x0, _active(active, n_a))
     return out
 
 

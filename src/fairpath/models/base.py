@@ -189,6 +189,14 @@ class Stepper:
                 _same(x, y) for x, y in zip(mine, theirs, strict=True))
         return out
 
+    def restart(self, x0: np.ndarray, col: int, last: int, rng: np.random.Generator
+                ) -> np.ndarray | None:
+        """Paths restarted from the escrowed log-levels ``x0`` (paths, assets) on grid column
+        ``col`` (-1: today), with pseudo-random normals from ``rng``: the escrowed log-levels
+        on the grid columns ``col + 1`` to ``last``, (paths, assets, last - col). None (the
+        default) where the model's state is more than the levels (a stochastic variance)."""
+        return None
+
     def simulate_changed(self, z: np.ndarray, base: PathState, keep: np.ndarray) -> PathState:
         """Paths from the normals ``z`` where the assets in ``keep`` have the paths of
         ``base`` (:meth:`unchanged`): those are copied, the others simulated. The default

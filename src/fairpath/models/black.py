@@ -122,6 +122,15 @@ class ExactSteps(ScalesWithSpot, Stepper):
         return self.state_changed(log_paths(z, self.drift, self.factor, self.log_start, ~keep),
                                   base, keep)
 
+    def restart(self, x0, col, last, rng):
+        out = np.empty((*x0.shape, last - col))
+        x = x0
+        for j, g in enumerate(range(col + 1, last + 1)):
+            z = rng.standard_normal(x.shape)
+            x = x + self.drift[:, g][None, :] + z @ self.factor[g].T
+            out[:, :, j] = x
+        return out
+
     def first_step(self):
         L = self.factor[0]
         return self.drift[:, 0], L @ L.T

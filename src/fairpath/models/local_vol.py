@@ -133,6 +133,14 @@ class LocalSteps(ScalesWithSpot, Stepper):
         return local_vol_paths(z, self.corr, self.log_fwd, self.step_sd, self.y0, self.dy,
                                self.gbm_sd, self.is_lv, self.log_start, active, self.grid_cols)
 
+    def restart(self, x0, col, last, rng):
+        f0 = 0 if col < 0 else int(self.grid_cols[col]) + 1
+        f1 = int(self.grid_cols[last]) + 1
+        z = rng.standard_normal((x0.shape[0], x0.shape[1], f1 - f0))
+        return local_vol_paths(z, self.corr, self.log_fwd[:, f0:f1 + 1],
+                               self.step_sd[:, f0:f1], self.y0, self.dy, self.gbm_sd[:, f0:f1],
+                               self.is_lv, x0, None, self.grid_cols[col + 1:last + 1] - f0)
+
     def asset_inputs(self, a: int) -> tuple:
         return (self.sim_times, self.grid_cols, self.log_fwd[a], self.step_sd[a], self.y0[a],
                 self.dy[a], self.gbm_sd[a], self.is_lv[a], self.corr[a], self.log_start[a],
