@@ -68,9 +68,14 @@ def check_dual(product, market, source: str | None = None) -> None:
     from fairpath.dates import weekdays_between
     from fairpath.models import ModelSet
 
-    if not isinstance(product, EarlyExercise):
-        raise InputError("applies only to American options and Bermudan baskets",
+    if not isinstance(product, EarlyExercise) and not _issuer_callable(product, market):
+        raise InputError("applies only to American options, Bermudan baskets and "
+                         "issuer-callable notes (with a call date still to come)",
                          source=source, key="--dual")
+    if getattr(product, "protection_monitoring", None) == "continuous":
+        raise InputError("restarts the note from its closes, and a barrier watched "
+                         "continuously also reads the crossings between them: use daily or "
+                         "final monitoring", source=source, key="--dual")
     models = ModelSet.resolve(market, product.underlyings(), source=source)
     kinds = sorted({m.kind for m in models.models} - set(RESTARTS))
     if kinds:
@@ -78,6 +83,8 @@ def check_dual(product, market, source: str | None = None) -> None:
                          f"{', '.join(kinds)} model cannot (its state is more than the levels); "
                          f"it works under {' and '.join(RESTARTS)}", source=source,
                          key="--dual")
+    if not isinstance(product, EarlyExercise):
+        return
     n = len(weekdays_between(market.valuation_date, product.expiry)) \
         if product.exercise_dates is None else len(product.observation_dates())
     if n > MAX_DATES:
@@ -86,15 +93,27 @@ def check_dual(product, market, source: str | None = None) -> None:
                          "with fewer dates)", source=source, key="--dual")
 
 
+def _issuer_callable(product, market) -> bool:
+    from fairpath.products.autocall import Autocallable
+
+    return isinstance(product, Autocallable) and any(
+        d > market.valuation_date for d in product.call_dates)
+
+
 def dual_bounds(product, market, lower: float, lower_se: float, *, seed: int | None,
                 steps_per_day: int = 1, outer: int = DEFAULT_OUTER,
                 inner: int = DEFAULT_INNER, source: str | None = None) -> Bounds:
     """Andersen and Broadie's upper bound for the holder of ``product`` (fitted), given its
-    lower bound ``lower`` (stderr ``lower_se``) from the pricing run."""
+    lower bound ``lower`` (stderr ``lower_se``) from the pricing run. For an issuer-callable
+    note the price is the upper bound and this gives the lower one (:func:`issuer_bounds`)."""
     from fairpath.engine import Simulation
     from fairpath.sampling import make_sampler
 
     check_dual(product, market, source)
+    if not isinstance(product, EarlyExercise):
+        return issuer_bounds(product, market, lower, lower_se, seed=seed,
+                             steps_per_day=steps_per_day, outer=outer, inner=inner,
+                             source=source)
     if product.policy is None:
         raise InputError("the product must be fitted before its bounds", key="--dual")
     smp = make_sampler("pseudo", seed=seed, stream_key=(DUAL_STREAM,))
@@ -131,6 +150,97 @@ def dual_bounds(product, market, lower: float, lower_se: float, *, seed: int | N
     return Bounds(lower, lower_se, upper, se, outer, inner)
 
 
+def issuer_bounds(note, market, upper: float, upper_se: float, *, seed: int | None,
+                  steps_per_day: int = 1, outer: int = DEFAULT_OUTER,
+                  inner: int = DEFAULT_INNER, source: str | None = None) -> Bounds:
+    """The issuer's side of an issuer-callable note (fitted): its price under the frozen call
+    policy, ``upper`` (stderr ``upper_se``), is an upper bound (a policy short of the issuer's
+    best leaves the note worth more), and duality gives the lower one.
+
+    The issuer minimises, so for any martingale ``M`` with ``M_0 = 0`` the note is worth at
+    least ``E[min_k (H_k - M_k)]`` over the call dates and maturity, ``H_k`` the discounted
+    cash the holder gets if the issuer calls on date ``k`` (the coupons and early redemptions
+    paid so far plus the call price, where the note is still alive) and ``H`` at maturity the
+    cash without any call. ``M`` is Andersen and Broadie's, built from the frozen policy: on
+    each call date ``L_k`` is ``H_k`` where the policy calls, else ``C_k``, the cash so far plus
+    the value of the note's later cash flows under the policy, estimated from ``inner`` paths
+    restarted from the outer path's levels, coupons owed and barrier state on that date; ``M``
+    moves by ``L_k - C_{k-1}`` (``C`` before the first call date: the price). The paths
+    continue after the policy's call (the martingale is the state's, not the policy's)."""
+    from fairpath.engine import Simulation
+    from fairpath.sampling import make_sampler
+
+    if note.call_policy is None:
+        raise InputError("the note must be fitted before its bounds", key="--dual")
+    smp = make_sampler("pseudo", seed=seed, stream_key=(DUAL_STREAM,))
+    sim = Simulation([note], market, smp, [[]], source, steps_per_day)
+    stepper = sim.stepper
+    z = smp.normals(smp.plan(outer), sim.factors, sim.sim_times)
+    ps = sim.pathsets(stepper.simulate(z).log_levels)[0]
+    rec: dict = {}
+    note._evaluate(ps, False, record=rec)
+    cash = np.cumsum(rec["flows"], axis=1) * note.notional  # paid up to each date, today's value
+    rng = np.random.default_rng(np.random.SeedSequence(
+        entropy=0 if seed is None else seed, spawn_key=(DUAL_STREAM, 2)))
+    calls = sorted(rec["calls"])
+    m = len(calls) + 1
+    h = np.empty((outer, m))
+    value = np.empty((outer, m))  # L_k
+    cont = np.empty((outer, m))  # C_k (in total: the cash so far and the value after)
+    for i, j in enumerate(calls):
+        d, df, alive, x, owed, breached = rec["calls"][j]
+        h[:, i] = cash[:, j] + alive * (note.call_price * note.notional * df)
+        later = np.zeros(outer)
+        idx = np.flatnonzero(alive > 0)
+        if len(idx):
+            later[idx] = _note_inner_values(
+                note, market, sim, ps.grid_log_levels[idx][:, :, sim.grid_dates.index(d)], d,
+                owed[idx], None if breached is None else breached[idx] > 0, inner, rng)
+        cont[:, i] = cash[:, j] + later
+        go = (alive > 0) & note.call_policy.calls(d, x, note.call_price)
+        value[:, i] = np.where(go, h[:, i], cont[:, i])
+    h[:, -1] = value[:, -1] = cash[:, -1]
+    prev = np.concatenate([np.full((outer, 1), upper), cont[:, :-1]], axis=1)
+    shortfall = np.min(h - np.cumsum(value - prev, axis=1), axis=1)
+    lower = float(shortfall.mean())
+    se = math.sqrt(upper_se ** 2 + float(shortfall.var(ddof=1)) / outer)
+    return Bounds(lower, se, upper, upper_se, outer, inner)
+
+
+def _note_inner_values(note, market, sim, log_levels: np.ndarray, start, owed: np.ndarray,
+                       breached: np.ndarray | None, inner: int, rng) -> np.ndarray:
+    """Per outer path: the mean discounted cash after ``start`` of ``inner`` paths of the
+    note restarted from its log-levels ``log_levels`` (outer, assets) on that date, alive,
+    with its coupons owed and barrier state, and called by the frozen policy later on."""
+    from fairpath.products.autocall import NoteState
+    from fairpath.products.base import PathSet
+
+    stepper = sim.stepper
+    col = sim.grid_dates.index(start)
+    last = len(sim.grid_dates) - 1
+    escrow = stepper.escrow
+    x0 = log_levels if escrow is None else np.log(np.exp(log_levels) - escrow[None, :, col])
+    grid = sim.grid_dates[col + 1:]
+    obs_index = [grid.index(d) if d > start else -1 for d in note.observations]
+    n_out = x0.shape[0]
+    out = np.empty(n_out)
+    chunk = max(1, (1 << 15) // inner)
+    for o0 in range(0, n_out, chunk):
+        o1 = min(o0 + chunk, n_out)
+        x = stepper.restart(np.repeat(x0[o0:o1], inner, axis=0), col, last, rng)
+        if escrow is not None:
+            x = np.log(np.exp(x) + escrow[None, :, col + 1:])
+        paths = PathSet.from_log_levels(market, sim.names, note.observations, obs_index,
+                                        sim.spots, grid, sim.grid_times[col + 1:], x,
+                                        stepper.variance[:, col + 1:], sim.capabilities)
+        state = NoteState(start, np.repeat(owed[o0:o1], inner),
+                          np.zeros(x.shape[0], dtype=bool) if breached is None
+                          else np.repeat(breached[o0:o1], inner))
+        cash, _ = note._evaluate(paths, False, state=state)
+        out[o0:o1] = cash.reshape(o1 - o0, inner).mean(axis=1)
+    return out
+
+
 def _inner_values(product, market, stepper, log_levels: np.ndarray, col: int, dates, cols,
                   dfs, inner: int, rng) -> np.ndarray:
     """Per outer path: the mean discounted cash of ``inner`` paths restarted from its
@@ -165,10 +275,12 @@ def with_bounds(res, *, seed: int | None, steps_per_day: int = 1, source: str | 
     product, market = res.context[0], res.context[1]
     b = dual_bounds(product, market, res.price, res.stderr, seed=seed,
                     steps_per_day=steps_per_day, source=source)
+    holder = isinstance(product, EarlyExercise)
     note = (f"duality (Andersen-Broadie, {b.outer:,} outer paths x {b.inner:,} inner per "
-            f"date): the value lies between the lower bound {b.lower:.6g} (stderr "
-            f"{b.lower_se:.2g}, the price) and the upper bound {b.upper:.6g} (stderr "
-            f"{b.upper_se:.2g}); gap {b.gap:.4g}, {b.gap / max(abs(b.upper), 1e-300):.2%} of "
-            "the upper bound")
+            f"date{'' if holder else ', for the issuer'}): the value lies between the lower "
+            f"bound {b.lower:.6g} (stderr {b.lower_se:.2g}{', the price' if holder else ''}) "
+            f"and the upper bound {b.upper:.6g} (stderr {b.upper_se:.2g}"
+            f"{'' if holder else ', the price'}); gap {b.gap:.4g}, "
+            f"{b.gap / max(abs(b.upper), 1e-300):.2%} of the upper bound")
     return dataclasses.replace(res, notes=(*res.notes, note),
                                extras={**res.extras, "bounds": b.to_dict()})

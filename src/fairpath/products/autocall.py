@@ -78,6 +78,18 @@ MIN_ALIVE = 32
 
 
 @dataclass(frozen=True, slots=True)
+class NoteState:
+    """A note's state on a date after today, where paths restart (the duality bound of an
+    issuer-callable note): the observations up to ``start`` are past, each path is alive and
+    owes ``owed`` memory coupons, and ``breached`` says whether its barrier was breached on a
+    watched close up to ``start``."""
+
+    start: date
+    owed: np.ndarray
+    breached: np.ndarray
+
+
+@dataclass(frozen=True, slots=True)
 class CallPolicy:
     """The issuer's frozen call policy: per call date, the regression coefficients of the
     continuation value (a fraction of the notional) on :func:`call_basis`, None where too few
@@ -472,20 +484,24 @@ class Autocallable(Product):
         return ()
 
     # -- payoff ----------------------------------------------------------------------------
-    def _evaluate(self, ps: PathSet, want_diagnostics: bool, record: dict | None = None):
+    def _evaluate(self, ps: PathSet, want_diagnostics: bool, record: dict | None = None,
+                  state: NoteState | None = None):
         """Discounted cash per path and the diagnostics. A callable note is called by its
         frozen policy; with ``record`` (a dict, filled in: fitting) it is never called, and the
         record gets each future observation's cash flows in notional units discounted to
         today (``"flows"``, (paths, dates)) and, per call date, the paths alive after that
-        date's early-redemption test and the regression basis (``"calls"``)."""
+        date's early-redemption test and the regression basis (``"calls"``). With ``state``
+        the paths start later than today, alive, from that state (:class:`NoteState`)."""
         market = ps.market
         init = self.initial(market)
-        future = self._future(market)
+        future = self._future(market) if state is None else \
+            [k for k, d in enumerate(self.observations) if d > state.start]
         n = ps.n
         cols = [ps.dates.index(self.observations[k]) for k in future]
         worst = (ps.levels[:, :, cols] / init[None, :, None]).min(axis=1)  # (paths, future obs)
         alive = np.ones(n)
-        owed = np.full(n, float(self.coupons_owed))
+        owed = np.full(n, float(self.coupons_owed)) if state is None else \
+            state.owed.astype(float)
         value = np.zeros(n)
         diag: dict[str, np.ndarray] = {}
         last = len(self.observations) - 1
@@ -494,7 +510,7 @@ class Autocallable(Product):
         if calls and record is None and self.call_policy is None:
             raise InputError("an issuer-callable note must have its call policy fitted (on "
                              "pilot paths) before pricing")
-        watch = _BreachWatch(self, ps, init) if calls else None
+        watch = _BreachWatch(self, ps, init, state) if calls else None
         life = np.zeros(n) if calls and want_diagnostics else None
         if record is not None:
             record["flows"] = np.zeros((n, len(future)))
@@ -523,10 +539,11 @@ class Autocallable(Product):
                 alive = alive - called
                 ended = called
                 if d in calls:
+                    breached = watch.breached(d)
                     x = call_basis(ps.levels[:, :, cols[j]] / init[None, :],
-                                   owed if self.memory else None, watch.breached(d))
+                                   owed if self.memory else None, breached)
                     if record is not None:
-                        record["calls"][j] = (d, df, alive.copy(), x)
+                        record["calls"][j] = (d, df, alive.copy(), x, owed.copy(), breached)
                     else:
                         icalled = alive * self.call_policy.calls(d, x, self.call_price)
                         value += icalled * (self.call_price * self.notional * df)
@@ -537,7 +554,7 @@ class Autocallable(Product):
                 if life is not None:
                     life += ended * market.time(d)
             else:
-                p_ki = self._knock_in_probability(ps, worst[:, j], init)
+                p_ki = self._knock_in_probability(ps, worst[:, j], init, state)
                 below = w < self.strike_level
                 loss = p_ki * below * (1.0 - w / self.strike_level)
                 value += alive * (1.0 - loss) * (self.notional * df)
@@ -576,7 +593,7 @@ class Autocallable(Product):
         fitted: dict[date, tuple] = {}
         for j in range(flows.shape[1] - 1, -1, -1):
             if j in rec["calls"]:
-                d, df, alive, x = rec["calls"][j]
+                d, df, alive, x, _, _ = rec["calls"][j]
                 idx = np.flatnonzero(alive > 0)
                 if len(idx) < MIN_ALIVE:
                     fitted[d] = (None, 0.0, (0.0, 0.0))
@@ -593,21 +610,24 @@ class Autocallable(Product):
                             pilot.n)
         return dataclasses.replace(self, call_policy=policy)
 
-    def _knock_in_probability(self, ps: PathSet, worst_final: np.ndarray, init: np.ndarray
-                              ) -> np.ndarray:
+    def _knock_in_probability(self, ps: PathSet, worst_final: np.ndarray, init: np.ndarray,
+                              state: NoteState | None = None) -> np.ndarray:
         n = ps.n
         if self.breached_now(ps.market):
             return np.ones(n)
         pb = self.protection_barrier
         if self.protection_monitoring == "final":
             return (worst_final <= pb).astype(float)
-        lo, hi = ps.grid_range(ps.market.valuation_date, self.maturity)
+        lo, hi = ps.grid_range(ps.market.valuation_date if state is None else state.start,
+                               self.maturity)
         if pb <= 0:
             return np.zeros(n)
         # in logs: the lowest close of each asset, then the worst performance among them
         log_init = np.log(init)
         lowest = ps.grid_log_levels[:, :, lo:hi].min(axis=2) - log_init[None, :]
         grid_hit = lowest.min(axis=1) <= math.log(pb)
+        if state is not None:
+            grid_hit |= state.breached
         if self.protection_monitoring == "daily":
             return grid_hit.astype(float)
         # continuous: Brownian-bridge crossing probability per asset and step (see module notes)
@@ -643,7 +663,8 @@ class _BreachWatch:
     gives None where it is no state: a barrier watched at maturity only, no barrier, or one
     breached already."""
 
-    def __init__(self, note: Autocallable, ps: PathSet, init: np.ndarray):
+    def __init__(self, note: Autocallable, ps: PathSet, init: np.ndarray,
+                 state: NoteState | None = None):
         self.ps = ps
         self.on = note.protection_monitoring != "final" and note.protection_barrier > 0 \
             and not note.breached_now(ps.market)
@@ -651,6 +672,9 @@ class _BreachWatch:
         self.log_init = np.log(init)[None, :]
         self.low = np.full(ps.n, np.inf)
         self.since = ps.market.valuation_date
+        if state is not None:
+            self.low[state.breached] = -np.inf
+            self.since = state.start
 
     def breached(self, d: date) -> np.ndarray | None:
         if not self.on:
