@@ -357,6 +357,8 @@ def _check(args) -> int:
         if c.fair_coupon is not None:
             print(f"{'':<34} coupon {c.coupon:.4%}, fair coupon at the quote "
                   f"{c.fair_coupon:.4%}")
+        if c.funding:
+            print(f"{'':<34} {c.funding_text}")
         if c.flat_vol_price is not None:
             print(f"{'':<34} with the at-the-money vols (no smile): {c.flat_vol_price:.4f} "
                   f"({c.flat_vol_price - c.price:+.4f})")

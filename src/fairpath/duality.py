@@ -232,7 +232,8 @@ def _note_inner_values(note, market, sim, log_levels: np.ndarray, start, owed: n
             x = np.log(np.exp(x) + escrow[None, :, col + 1:])
         paths = PathSet.from_log_levels(market, sim.names, note.observations, obs_index,
                                         sim.spots, grid, sim.grid_times[col + 1:], x,
-                                        stepper.variance[:, col + 1:], sim.capabilities)
+                                        stepper.variance[:, col + 1:], sim.capabilities,
+                                        note.funding_curve(market))
         state = NoteState(start, np.repeat(owed[o0:o1], inner),
                           np.zeros(x.shape[0], dtype=bool) if breached is None
                           else np.repeat(breached[o0:o1], inner))

@@ -332,8 +332,9 @@ class Simulation:
         var = s.stepper.variance if s.stepper is not None else np.zeros((len(self.names), 0))
         return [PathSet.from_log_levels(s.market, self.names, dates, index, s.spots,
                                         self.grid_dates, s.times, log_levels, var,
-                                        s.capabilities)
-                for dates, index in zip(self.dates, self.obs_index, strict=True)]
+                                        s.capabilities, p.funding_curve(s.market))
+                for p, dates, index in zip(self.products, self.dates, self.obs_index,
+                                           strict=True)]
 
     @staticmethod
     def sample_values(product: Product, controls: list[ControlVariate], ps: PathSet,
@@ -761,6 +762,7 @@ def prepare(products: list[Product], market: Market, source: str | None = None
     horizon; the market to simulate and the notes saying what was dropped."""
     for p in products:
         p.check(market, source or p.source)
+        p.funding_curve(market, source or p.source)  # an issuer the market does not know
     names = products[0].underlyings()
     return market.dividend_horizon(names, last_date(products, market))
 

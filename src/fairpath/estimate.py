@@ -145,7 +145,51 @@ def price_run(products: list[Product], market: Market, settings: Settings, *,
               ) -> list[PriceResult]:
     """:func:`price_many` with its settings as one value (what the other commands call).
     ``richardson_steps``: under discretised models (local vol), remove the steps' bias to
-    first order and measure it (:func:`fairpath.engine.richardson`)."""
+    first order and measure it (:func:`fairpath.engine.richardson`).
+
+    A product discounted at its issuer's funding spread is priced beside its twin without the
+    spread, on the same paths: the result says the spread and the price without it
+    (:func:`with_funding`)."""
+    source = source if source is not None else products[0].source
+    funded = [j for j, p in enumerate(products)
+              if p.funding_curve(market, source or p.source) is not None]
+    twins = [dataclasses.replace(products[j], funding=False) for j in funded]
+    out = _price_run(products + twins, market, settings, source=source,
+                     control_set=control_set, target_stderr=target_stderr,
+                     max_paths=max_paths, t_start=t_start, richardson_steps=richardson_steps)
+    res, rest = out[:len(products)], out[len(products):]
+    for j, twin in zip(funded, rest, strict=True):
+        res[j] = with_funding(res[j], twin, market)
+    return res
+
+
+def with_funding(res: PriceResult, twin: PriceResult, market: Market) -> PriceResult:
+    """The result of a product discounted at its issuer's funding spread, saying the spread
+    and the price without it (``twin``: the same product on the same paths, discounted on the
+    curve), in a note and under ``funding`` in its extras."""
+    product = res.context[0] if res.context else None
+    issuer = product.issuer if product is not None else None
+    curve = market.issuer_spread(issuer)
+    spread = {"spread": curve.zero_rates[0]} if curve.is_flat else {
+        "tenors_years": list(curve.times), "spreads": list(curve.zero_rates)}
+    said = (f"{curve.zero_rates[0] * 1e4:.4g} bp" if curve.is_flat else
+            "from " + ", ".join(f"{s * 1e4:.4g} bp at {t:.3g}y"
+                                for t, s in zip(curve.times, curve.zero_rates, strict=True)))
+    note = (f"cash flows discounted at {issuer}'s funding spread over the discount curve "
+            f"({said}; the paths' drift stays risk-free): without the spread the price is "
+            f"{twin.price:.6g} (stderr {twin.stderr:.2g}), so the spread is worth "
+            f"{res.price - twin.price:+.6g}")
+    extras = {**res.extras, "funding": {"issuer": issuer, **spread,
+                                        "price_without_spread": twin.price,
+                                        "stderr_without_spread": twin.stderr}}
+    return dataclasses.replace(res, notes=(*res.notes, note), extras=extras)
+
+
+def _price_run(products: list[Product], market: Market, settings: Settings, *,
+               source: str | None = None, control_set: tuple[str, ...] | None = None,
+               target_stderr: float | None = None, max_paths: int = DEFAULT_MAX_PATHS,
+               t_start: float | None = None, richardson_steps: bool = False
+               ) -> list[PriceResult]:
     t_start = time.perf_counter() if t_start is None else t_start
     settings.make_sampler()  # refuse bad sampler settings before anything else
     if source is None:

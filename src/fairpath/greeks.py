@@ -101,7 +101,7 @@ def desk_units(kind: str, spot: float | None) -> tuple[float, str] | None:
         return 1e-4 * spot, "change of the first asset's cash delta for a 1% move of the second"
     if kind in ("vega", "vega_buckets"):
         return 0.01, "per vol point"
-    if kind == "rho":
+    if kind in ("rho", "spread"):
         return 1e-4, "per basis point"
     if kind == "theta":
         return 1.0 / 365.0, "per calendar day"
@@ -144,6 +144,9 @@ class GreeksResult:
     #: the spots (for the desk's units) and the note's notional, if any
     spots: dict[str, float] = field(default_factory=dict)
     notional: float | None = None
+    #: per 1.00 of the issuer's funding spread (a parallel shift), where the product has one
+    spread: Greek | None = None
+    issuer: str | None = None
 
     def _per_asset(self) -> list[tuple[str, dict]]:
         return [("delta", self.delta), ("gamma", self.gamma), ("vega", self.vega),
@@ -168,9 +171,11 @@ class GreeksResult:
             if table or kind in ("delta", "gamma", "vega"):
                 g[kind] = {k: {**v.to_dict(), **self._desk(kind, k, v)}
                            for k, v in table.items()}
-        for kind, v in (("rho", self.rho), ("theta", self.theta)):
+        for kind, v in (("rho", self.rho), ("theta", self.theta), ("spread", self.spread)):
             if v is not None:
                 g[kind] = {**v.to_dict(), **self._desk(kind, "", v)}
+        if self.spread is not None:
+            g["spread"]["issuer"] = self.issuer
         out = {"price": self.price, "stderr": self.stderr, "greeks": g,
                "currency": self.currency, "paths": self.paths, "sampler": self.sampler,
                "seed": self.seed, "seconds": round(self.seconds, 6), "bumps": self.bumps,
@@ -199,6 +204,8 @@ class GreeksResult:
             out.append(("rho", "", self.rho))
         if self.theta is not None:
             out.append(("theta", "", self.theta))
+        if self.spread is not None:
+            out.append(("funding spread", self.issuer or "", self.spread))
         out += [("correlation", k, v) for k, v in self.correlation.items()]
         out += [("dividend", k, v) for k, v in self.dividend.items()]
         out += [("cash dividend", k, v) for k, v in self.cash_dividend.items()]
@@ -206,7 +213,7 @@ class GreeksResult:
 
     def _desk_row(self, name: str, asset: str, g: Greek) -> str:
         kind = {"cross-gamma": "cross_gamma", "vega bucket": "vega_buckets",
-                "cash dividend": "cash_dividend"}.get(name, name)
+                "cash dividend": "cash_dividend", "funding spread": "spread"}.get(name, name)
         key = asset.split(" ")[0] if kind == "vega_buckets" else asset
         d = self._desk(kind, key, g)
         if not d:
@@ -247,11 +254,13 @@ class GreeksResult:
 
 UNITS = ("delta per 1 unit of spot, gamma per unit^2, vega per 1.00 of vol, rho per 1.00 of "
          "rate, theta per year, correlation per 1.00 of correlation, dividend per 1.00 of "
-         "dividend yield, cash dividend per 100% of the announced amounts")
+         "dividend yield, cash dividend per 100% of the announced amounts, funding spread per "
+         "1.00 of spread")
 DESK_UNITS = ("cash delta = value change for a 1% spot move; 1% gamma = change of the cash "
               "delta for a 1% move; vega per vol point; rho per basis point; theta per day; "
               "correlation per 0.01; dividend per basis point of yield; cash dividend per 1% "
-              "of the amounts; for a note also as a percentage of notional")
+              "of the amounts; funding spread per basis point; for a note also as a "
+              "percentage of notional")
 
 
 # ---------------------------------------------------------------------------------------------
@@ -378,6 +387,12 @@ def greeks(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
                         f"smaller ({', '.join(f'{n}: {dv:g}' for n, dv in dvs.items())})")
     scen.append(("r+", bump.rates(market, RATE_BUMP)))
     scen.append(("r-", bump.rates(market, -RATE_BUMP)))
+    funding = product.funding_curve(market, source)
+    if funding is not None:  # the issuer's funding spread, a parallel shift
+        for label, dr in (("f+", RATE_BUMP), ("f-", -RATE_BUMP)):
+            scen.append((label, market.with_issuer_spread(product.issuer,
+                                                          funding.shifted(dr))))
+        bumps["spread"] = f"{RATE_BUMP:g} parallel on {product.issuer}'s spread, central"
     later = bump.valuation_date(market, 1)
     earlier = bump.valuation_date(market, -1)
     theta_ok = True
@@ -579,6 +594,9 @@ def greeks(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
                                  Estimator(LIKELIHOOD_RATIO, "cross", f"{a}/{b}"))
     rho = combo({index["r+"]: 0.5 / RATE_BUMP, index["r-"]: -0.5 / RATE_BUMP},
                 "bump (central, common numbers)")
+    spread = None if funding is None else \
+        combo({index["f+"]: 0.5 / RATE_BUMP, index["f-"]: -0.5 / RATE_BUMP},
+              "bump (central, common numbers)")
     theta = None
     if theta_ok:
         dt = year_fraction(market.valuation_date, later.valuation_date, market.day_count)
@@ -628,12 +646,13 @@ def greeks(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
             {k: flag(v) for k, v in d.items()}
             for d in (delta, gamma, vega, cross, corr, divs, cash_divs))
         vega_b = {a: {k: flag(v) for k, v in d.items()} for a, d in vega_b.items()}
-        rho, theta = flag(rho), flag(theta)
+        rho, theta, spread = flag(rho), flag(theta), flag(spread)
     return GreeksResult(base.value, base.stderr, market.currency, delta, gamma, vega, cross,
                         rho, theta, paths, smp.name, smp.seed, time.perf_counter() - t0, bumps,
                         tuple(notes), corr, divs, cash_divs, vega_b,
                         {n: market.asset(n).spot for n in names},
-                        getattr(product, "notional", None))
+                        getattr(product, "notional", None), spread,
+                        product.issuer if funding is not None else None)
 
 
 def greek_profile(product: Product, market: Market, asset: str | None = None,

@@ -34,6 +34,9 @@ PSD_TOLERANCE = 1e-10
 #: Largest absolute rate or dividend yield a market file may give (100%, continuously
 #: compounded): a larger one is a percentage typed as a number.
 MAX_RATE = 1.0
+#: Largest funding spread (either sign) an issuer may have: 20% a year; more is basis points
+#: or a percentage typed as a number.
+MAX_SPREAD = 0.2
 #: Where an asset given by its Heston parameters alone gets its Black term structure (the root
 #: of the mean expected variance; Brownian-bridge corrections and tail checks read it)
 HESTON_VOL_TIMES = (0.25, 0.5, 1.0, 2.0, 3.0, 5.0, 10.0, 30.0)
@@ -241,6 +244,8 @@ class Market:
     day_count: str = "ACT/365F"
     correlation: Correlation | None = None
     source: str | None = field(default=None, compare=False)
+    #: issuers' funding spreads over the discount curve, ``(name, zero-spread curve)``
+    issuers: tuple[tuple[str, DiscountCurve], ...] = ()
 
     def __post_init__(self):
         if self.day_count not in DAY_COUNTS:
@@ -269,6 +274,23 @@ class Market:
     def df(self, d) -> float | np.ndarray:
         """Discount factor to a date (or dates)."""
         return self.discount.df(self.time(d))
+
+    def issuer_spread(self, name: str, *, source: str | None = None,
+                      key: str | None = "issuer") -> DiscountCurve:
+        """An issuer's funding spread over the discount curve, as a zero curve of spreads
+        (``exp(-s(t) t)`` multiplies the discount factor of a cash flow the issuer pays)."""
+        for n, curve in self.issuers:
+            if n == name:
+                return curve
+        known = [n for n, _ in self.issuers]
+        raise InputError(f"unknown issuer {name!r}{did_you_mean(name, known)}; the market's "
+                         f"[issuers] {'has ' + ', '.join(known) if known else 'block is missing'}",
+                         source=source or self.source, key=key)
+
+    def with_issuer_spread(self, name: str, curve: DiscountCurve) -> Market:
+        """The market with issuer ``name``'s spread curve replaced (or added)."""
+        rest = tuple((n, c) for n, c in self.issuers if n != name)
+        return dataclasses.replace(self, issuers=(*rest, (name, curve)))
 
     def forward(self, name: str, t) -> float | np.ndarray:
         """Forward level of an asset at time ``t`` (years): the escrowed level's forward plus
@@ -425,21 +447,34 @@ def load_market(path: str | Path) -> Market:
             raise tab.error(key, "tenors must be strictly increasing")
         return out
 
-    disc = top.table("discount")
-    if disc.has("rate"):
-        if disc.has("tenors") or disc.has("zero_rates"):
-            raise disc.error("rate", "give either 'rate' or 'tenors' + 'zero_rates', not both")
-        curve = DiscountCurve.flat(_rate(disc, "rate", disc.raw("rate")))
-    else:
-        if not disc.has("tenors"):
-            raise disc.error("rate", "missing: give 'rate' or 'tenors' + 'zero_rates'")
-        times = tenor_times(disc, "tenors")
-        rates = disc.list("zero_rates")
-        if len(rates) != len(times):
-            raise disc.error("zero_rates", f"has {len(rates)} values for {len(times)} tenors")
-        rates = [_rate(disc, f"zero_rates[{i}]", r) for i, r in enumerate(rates)]
-        curve = DiscountCurve(tuple(times), tuple(rates))
-    disc.finish()
+    def zero_curve(tab: Table, flat: str, many: str, check) -> DiscountCurve:
+        """``flat`` (one number) or ``tenors`` + ``many`` (one per tenor), each read by
+        ``check(tab, key, value)``."""
+        if tab.has(flat):
+            if tab.has("tenors") or tab.has(many):
+                raise tab.error(flat, f"give either '{flat}' or 'tenors' + '{many}', not both")
+            out = DiscountCurve.flat(check(tab, flat, tab.raw(flat)))
+        else:
+            if not tab.has("tenors"):
+                raise tab.error(flat, f"missing: give '{flat}' or 'tenors' + '{many}'")
+            times = tenor_times(tab, "tenors")
+            values = tab.list(many)
+            if len(values) != len(times):
+                raise tab.error(many, f"has {len(values)} values for {len(times)} tenors")
+            values = [check(tab, f"{many}[{i}]", r) for i, r in enumerate(values)]
+            out = DiscountCurve(tuple(times), tuple(values))
+        tab.finish()
+        return out
+
+    curve = zero_curve(top.table("discount"), "rate", "zero_rates", _rate)
+    issuers = []
+    itab = top.table("issuers", None)
+    if itab is not None:
+        for name in list(itab.data):
+            if not name.strip() or not name.isprintable() or name != name.strip():
+                raise itab.error(None, f"issuer name {show(name)} must be printable, not "
+                                 "blank, without leading or trailing spaces")
+            issuers.append((name, zero_curve(itab.table(name), "spread", "spreads", _spread)))
 
     assets_tab = top.table("assets")
     if not assets_tab.data:
@@ -537,7 +572,8 @@ def load_market(path: str | Path) -> Market:
         ctab.finish()
     top.finish()
     market = Market(valuation_date=valuation, currency=currency, discount=curve,
-                    assets=tuple(assets), day_count=day_count, correlation=corr, source=src)
+                    assets=tuple(assets), day_count=day_count, correlation=corr, source=src,
+                    issuers=tuple(issuers))
     for a in market.assets:
         if market.dividend_times(a.name) and not market.escrowed_spot(a.name) > 0:
             raise InputError(f"the dividends to come are worth {market.escrow(a.name, 0.0):g} "
@@ -565,6 +601,16 @@ def _rate(tab: Table, name: str, value) -> float:
     if abs(v) > MAX_RATE:
         raise tab.error(name, f"{v:g} is {v:.0%} continuously compounded; a percentage? write "
                         f"{v / 100:g} for {v:g}%")
+    return v
+
+
+def _spread(tab: Table, name: str, value) -> float:
+    """A funding spread: a finite number within MAX_SPREAD either side of zero (a larger one
+    is basis points or a percentage typed as a number)."""
+    v = tab.check_number(name, value)
+    if abs(v) > MAX_SPREAD:
+        raise tab.error(name, f"{v:g} is a spread of {v:.0%} a year; in basis points? write "
+                        f"{v / 1e4:g} for {v:g} bp (or {v / 100:g} for {v:g}%)")
     return v
 
 

@@ -92,6 +92,20 @@ class QuoteCheck:
     tolerance: float = 0.0
     #: ``(model kind, price, stderr)`` for each compared model, in the order asked
     models: tuple[tuple[str, float, float], ...] = ()
+    #: the issuer's funding spread the price is discounted with, and the price without it
+    #: (``fairpath.estimate.with_funding``); None for a product without one
+    funding: dict | None = None
+
+    @property
+    def funding_text(self) -> str:
+        """The spread used and the price without it, in a line (empty without a spread)."""
+        f = self.funding
+        if not f:
+            return ""
+        spread = (f"{f['spread'] * 1e4:.4g} bp" if "spread" in f else
+                  f"{min(f['spreads']) * 1e4:.4g}-{max(f['spreads']) * 1e4:.4g} bp by tenor")
+        return (f"{f['issuer']}'s funding spread {spread}; without it "
+                f"{f['price_without_spread']:.6g}")
 
     @property
     def model_prices(self) -> dict[str, dict[str, float]]:
@@ -117,6 +131,8 @@ class QuoteCheck:
                      other_stderr=self.other_stderr)
         if self.flat_vol_price is not None:
             d["flat_vol_price"] = self.flat_vol_price
+        if self.funding:
+            d["funding"] = dict(self.funding)
         return d
 
     def _repr_html_(self) -> str:
@@ -360,7 +376,7 @@ def check_quote(product: Product, market: Market, quote: float, *, vol_band: flo
                       z if math.isfinite(z) else None, verdict, iv, note, coupon, fair,
                       product.label(), **other, vol_low=vol_low, vol_high=vol_high,
                       model_low=model_low, model_high=model_high, tolerance=tolerance,
-                      models=tuple(compared))
+                      models=tuple(compared), funding=base.extras.get("funding"))
 
 
 def read_quotes(path: str | Path) -> list[dict]:
@@ -503,7 +519,7 @@ def _table_html(checks: list[QuoteCheck], attrs: str = "") -> str:
         cells = (c.product, _fmt(c.quote), _fmt(c.price), _fmt(c.stderr, ".3g"), _fmt(c.low),
                  _fmt(c.high), *model_cols, _fmt(c.difference, ".4g"), _fmt(c.z, ".2f"),
                  c.verdict, _fmt(c.implied_vol, ".4%"), cpn, *law_col, *flat_col,
-                 c.implied_vol_note)
+                 "; ".join(x for x in (c.implied_vol_note, c.funding_text) if x))
         at = head.index("verdict")
         style = f" style='color:{COLOURS[c.verdict]}'"
         body.append("<tr>" + "".join(
@@ -706,10 +722,14 @@ def write_report(path: str | Path, checks: list[QuoteCheck], market: Market, set
                      f"<td>{html.escape(_vols_text(a.vol))}</td>"
                      f"<td>{a.dividend_yield:g}</td><td>{html.escape(a.law.describe())}</td>"
                      "</tr>" for a in market.assets)
-    disc = market.discount
-    curve = (f"{disc.zero_rates[0]:.4%} (flat)" if disc.is_flat else
-             ", ".join(f"{round(t, 2):g}y {r:.4%}"
-                       for t, r in zip(disc.times, disc.zero_rates, strict=True)))
+    def curve_text(c) -> str:
+        return (f"{c.zero_rates[0]:.4%} (flat)" if c.is_flat else
+                ", ".join(f"{round(t, 2):g}y {r:.4%}"
+                          for t, r in zip(c.times, c.zero_rates, strict=True)))
+
+    curve = curve_text(market.discount)
+    issuers = "".join(f"; {html.escape(n)}'s funding spread {html.escape(curve_text(c))}"
+                      for n, c in market.issuers)
     run = "".join(f"<tr><td>{html.escape(k)}</td><td>{html.escape(str(v))}</td></tr>"
                   for k, v in {**run_settings, "fairpath": __version__,
                                "numpy": numpy.__version__, "scipy": scipy.__version__,
@@ -731,7 +751,7 @@ max-width:28em;font-size:90%}}
 {_svg_chart(checks)}
 <h2>Market inputs</h2>
 <p>valuation date {market.valuation_date}, currency {html.escape(market.currency)},
-day count {market.day_count}; discount zero rates {html.escape(curve)}</p>
+day count {market.day_count}; discount zero rates {html.escape(curve)}{issuers}</p>
 <table><tr><th>asset</th><th>spot</th><th>vol (tenor in years, Black vol)</th>
 <th>dividend yield</th><th>shock law</th></tr>{assets}</table>
 {_correlation_html(market)}

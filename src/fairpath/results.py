@@ -72,6 +72,8 @@ class PriceResult:
             d["discretisation_bias"] = dict(self.extras["discretisation_bias"])
         if "bounds" in self.extras:
             d["bounds"] = dict(self.extras["bounds"])
+        if "funding" in self.extras:
+            d["funding"] = dict(self.extras["funding"])
         return d
 
     @property
@@ -109,6 +111,10 @@ class PriceResult:
             rows.append(("upper bound", f"{b['upper']['value']:.6f} (stderr "
                                         f"{b['upper']['stderr']:.6f}) by duality"))
             rows.append(("duality gap", f"{b['gap']:.6f}"))
+        f = self.extras.get("funding")
+        if f:
+            rows.append(("without funding spread", f"{f['price_without_spread']:.6f} (stderr "
+                                                   f"{f['stderr_without_spread']:.6f})"))
         rows.extend((k, f"{v:.6g}") for k, v in self.diagnostics.items()
                     if not k.startswith(EXERCISE_PREFIX))
         ex = self.exercise

@@ -203,7 +203,7 @@ class Barrier(OneAssetAtExpiry):
         hit = self._hit(ps.grid_levels[:, 0, cols])
         any_hit = hit.any(axis=1)
         first = np.argmax(hit, axis=1)
-        dfs = ps.market.discount.df(ps.grid_times[cols])
+        dfs = ps.df_times(ps.grid_times[cols])
         rebate_pv = np.where(any_hit, dfs[first], 0.0)
         return (~any_hit).astype(float), rebate_pv
 
@@ -232,9 +232,9 @@ class Barrier(OneAssetAtExpiry):
             return survive, np.zeros(ps.n)
         times = ps.grid_times[cols]
         t_prev = np.concatenate([[0.0], times[:-1]])
-        df_prev = ps.market.discount.df(t_prev)
+        df_prev = ps.df_times(t_prev)
         dt = times - t_prev
-        fwd_rate = np.log(df_prev / ps.market.discount.df(times)) / dt
+        fwd_rate = np.log(df_prev / ps.df_times(times)) / dt
         weight = alive_before * p_cross
         disc = np.ones_like(weight)
         live = weight > 1e-300

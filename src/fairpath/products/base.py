@@ -18,7 +18,7 @@ import numpy as np
 
 from fairpath.errors import InputError
 from fairpath.inputs import MAX_AMOUNT, did_you_mean, show
-from fairpath.market import Market
+from fairpath.market import DiscountCurve, Market
 from fairpath.registry import PATHWISE, Capability, Estimator, Shortcut, usable
 
 #: kind name -> product class
@@ -73,6 +73,9 @@ class PathSet:
     grid_log_levels: np.ndarray
     variance: np.ndarray
     capabilities: frozenset[Capability] = frozenset()
+    #: the issuer's funding spread over the discount curve (a zero curve of spreads) for the
+    #: product's cash flows, or None: discounted on the curve
+    funding: DiscountCurve | None = None
 
     @property
     def n(self) -> int:
@@ -81,7 +84,8 @@ class PathSet:
     @classmethod
     def from_log_levels(cls, market: Market, names, dates, obs_index, spots, grid_dates,
                         grid_times, log_levels: np.ndarray, variance: np.ndarray,
-                        capabilities: frozenset[Capability] = frozenset()) -> PathSet:
+                        capabilities: frozenset[Capability] = frozenset(),
+                        funding: DiscountCurve | None = None) -> PathSet:
         """A path set from simulated log-levels on the grid; ``obs_index`` gives each
         observation date's grid column (-1: the valuation date, at the spots)."""
         n = log_levels.shape[0]
@@ -92,7 +96,7 @@ class PathSet:
             else:
                 np.exp(log_levels[:, :, g], out=levels[:, :, k])
         return cls(market, tuple(names), tuple(dates), levels, spots, tuple(grid_dates),
-                   grid_times, log_levels, variance, frozenset(capabilities))
+                   grid_times, log_levels, variance, frozenset(capabilities), funding)
 
     def allows(self, product: Product, shortcut: Shortcut) -> bool:
         """May ``product`` use ``shortcut`` on these paths (registered for its kind, and every
@@ -105,8 +109,14 @@ class PathSet:
         return np.exp(self.grid_log_levels)
 
     def df(self, d: date) -> float:
-        """Discount factor from the valuation date to ``d``."""
-        return float(self.market.df(d))
+        """Discount factor from the valuation date to ``d`` of a cash flow the product pays
+        (on the curve plus the issuer's funding spread, if any)."""
+        return float(self.df_times(self.market.time(d)))
+
+    def df_times(self, t) -> float | np.ndarray:
+        """:meth:`df` at times ``t`` (years)."""
+        out = self.market.discount.df(t)
+        return out if self.funding is None else out * self.funding.df(t)
 
     def level(self, name: str, d: date) -> np.ndarray:
         """Levels of one asset on one observation date, shape (paths,)."""
@@ -174,6 +184,10 @@ class Product:
     name: str | None = field(default=None, kw_only=True)
     #: the file the product was read from (named in errors found when it is priced)
     source: str | None = field(default=None, kw_only=True, compare=False, repr=False)
+    #: the issuer whose funding spread (the market's ``[issuers]``) discounts the cash flows,
+    #: unless ``funding`` is False (an option that carries no issuer risk)
+    issuer: str | None = field(default=None, kw_only=True)
+    funding: bool = field(default=True, kw_only=True)
 
     def __init_subclass__(cls, **kwargs):
         super(Product, cls).__init_subclass__(**kwargs)
@@ -249,6 +263,14 @@ class Product:
         ``Estimator(PATHWISE, "vega", NAME)`` (see :func:`level_sensitivities`)."""
         return {}
 
+    def funding_curve(self, market: Market, source: str | None = None
+                      ) -> DiscountCurve | None:
+        """The issuer's funding spread curve its cash flows are discounted with (on top of
+        the discount curve), or None (no issuer, or ``funding = false``)."""
+        if self.issuer is None or not self.funding:
+            return None
+        return market.issuer_spread(self.issuer, source=source or self.source)
+
     def struck(self, market: Market) -> Product:
         """The product with every level that is fixed from today's spots fixed explicitly, so
         a spot bump moves the asset and not the trade's terms (e.g. a basket's initial levels)."""
@@ -316,7 +338,8 @@ class Product:
         from fairpath.models import ModelSet
 
         caps = ModelSet.resolve(market, self.underlyings()).capabilities
-        if not usable(self.kind, Shortcut.CLOSED_FORM, caps):
+        if not usable(self.kind, Shortcut.CLOSED_FORM, caps) or \
+                self.funding_curve(market) is not None:  # the closed forms know no spread
             return None
         return self.closed_form(market)
 

@@ -27,6 +27,15 @@ def product_from_dict(data: dict, *, source: str | None = None) -> Product:
     cls = product_class(tab.raw("kind"), source=source)
     cls = cls.for_terms(tab)
     kwargs = cls.from_table(tab)
+    issuer = tab.string("issuer", None)
+    funding = tab.boolean("funding", True)
+    if issuer is not None and not issuer.strip():
+        raise tab.error("issuer", "must not be empty")
+    if not funding and issuer is None:
+        raise tab.error("funding", "funding = false turns off an issuer's funding spread, and "
+                        "the product names no issuer")
+    if issuer is not None:
+        kwargs |= {"issuer": issuer, "funding": funding}
     tab.finish()
     try:
         product = cls(**kwargs, source=source)
