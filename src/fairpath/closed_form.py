@@ -100,6 +100,7 @@ __all__ = [
     "gap_option",
     "geometric_asian_continuous",
     "geometric_asian_discrete",
+    "quanto_price",
 ]
 
 _INV_SQRT_2PI = 1.0 / np.sqrt(2.0 * np.pi)
@@ -363,6 +364,27 @@ def bsm_price(spot: ArrayLike, strike: ArrayLike, T: ArrayLike, r: ArrayLike, q:
     phi = _phi(right, "bsm_price")
     x = _inputs("bsm_price", spot, strike, T, r, q, sigma)
     return _out(_bsm(x, phi, greeks=False)["price"])
+
+
+def quanto_price(spot: ArrayLike, strike: ArrayLike, T: ArrayLike, r_dom: ArrayLike,
+                 r_for: ArrayLike, q: ArrayLike, sigma: ArrayLike, sigma_fx: ArrayLike,
+                 rho: ArrayLike, right: str, quanto_rate: ArrayLike = 1.0) -> FloatOrArray:
+    """A quanto European: the payoff on a foreign asset, computed in its currency, paid as the
+    same number of domestic units times ``quanto_rate``.
+
+    Under the domestic measure the asset's forward is ``S e^{(r_for - q - rho sigma
+    sigma_fx) T}`` (the quanto drift), and the option is a Black-Scholes-Merton one on that
+    forward discounted at ``r_dom``: ``quanto_rate x bsm(S, K, T, r_dom, q', sigma)`` with
+    ``q' = r_dom - r_for + q + rho sigma sigma_fx``. Haug (2007) [H07] section 5.16
+    ("fixed exchange rate foreign equity options"); ``sigma_fx`` is the vol of the exchange
+    rate in domestic units per foreign unit, ``rho`` its correlation with the asset.
+    """
+    q_eff = (np.asarray(r_dom, dtype=float) - np.asarray(r_for, dtype=float)
+             + np.asarray(q, dtype=float)
+             + np.asarray(rho, dtype=float) * np.asarray(sigma, dtype=float)
+             * np.asarray(sigma_fx, dtype=float))
+    return _out(np.asarray(quanto_rate, dtype=float)
+                * np.asarray(bsm_price(spot, strike, T, r_dom, q_eff, sigma, right)))
 
 
 def bsm_greeks(spot: ArrayLike, strike: ArrayLike, T: ArrayLike, r: ArrayLike, q: ArrayLike,

@@ -28,6 +28,7 @@ from fairpath.engine import (  # noqa: F401  (re-exported: the engine's names as
 from fairpath.errors import FairpathError
 from fairpath.market import Market
 from fairpath.products.base import Product
+from fairpath.products.currency import settle
 from fairpath.results import CAUTION, Estimate, PriceResult  # noqa: F401
 from fairpath.sampling import DEFAULT_REPLICATES
 
@@ -151,6 +152,7 @@ def price_run(products: list[Product], market: Market, settings: Settings, *,
     spread, on the same paths: the result says the spread and the price without it
     (:func:`with_funding`)."""
     source = source if source is not None else products[0].source
+    products = settle(products, market, source)
     funded = [j for j, p in enumerate(products)
               if p.funding_curve(market, source or p.source) is not None]
     twins = [dataclasses.replace(products[j], funding=False) for j in funded]

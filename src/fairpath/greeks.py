@@ -49,6 +49,7 @@ from fairpath.errors import InputError
 from fairpath.market import Market
 from fairpath.models import ModelSet
 from fairpath.products.base import PathSet, Product
+from fairpath.products.currency import settle
 from fairpath.registry import LIKELIHOOD_RATIO, PATHWISE, Capability, Estimator, Shortcut, usable
 from fairpath.results import CAUTION
 from fairpath.sampling import DEFAULT_REPLICATES
@@ -350,7 +351,7 @@ def greeks(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
                         steps_per_day=steps_per_day, stream=stream, progress=progress)
     settings.make_sampler()  # refuse bad sampler settings before anything else
     product.check(market, source)
-    product = product.struck(market)
+    product = settle([product.struck(market)], market, source)[0]
     market, div_notes = prepare([product], market, source)
     names = product.underlyings()
     notes: list[str] = []

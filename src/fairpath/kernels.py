@@ -350,13 +350,16 @@ LV_TILE = 64
 
 @njit(cache=True, nogil=True)
 def _local_vol_paths(z, out, col_of, corr, log_fwd, lv_sd, lv_y0, lv_inv_dy, gbm_sd, is_lv,
-                     log_x0, active):
+                     log_x0, active, quanto):
     """Log-Euler steps of each asset's log-level x (the escrowed level when it pays cash
     dividends): ``x_{k+1} = x_k + log F_{k+1} - log F_k - s^2/2 + s e`` with ``e`` the
     correlated normal and ``s`` the step's standard deviation: the local vol at
     ``(t_k, y = x_k - log F_k)`` times the root of the step (tabulated as such), or the GBM
     step's. The level after step ``k`` goes to ``out[p, a, col_of[k]]`` (none when negative);
-    ``z`` is only read. Assets not ``active`` are skipped (their rows of ``out`` untouched)."""
+    ``z`` is only read. Assets not ``active`` are skipped (their rows of ``out`` untouched).
+    A foreign asset's drift in the reporting currency has the quanto term ``-quanto[a, k] s``
+    (``quanto`` is its correlation with its exchange rate times the rate's step deviation, so
+    the term is ``-rho sigma_loc sigma_X dt`` with the asset's own local vol); zero else."""
     n, n_a, n_s = z.shape
     last = lv_sd.shape[2] - 1
     x = np.empty((n, n_a))
@@ -389,7 +392,7 @@ def _local_vol_paths(z, out, col_of, corr, log_fwd, lv_sd, lv_y0, lv_inv_dy, gbm
                             sd = lv_sd[a, k, i] + (lv_sd[a, k, i + 1] - lv_sd[a, k, i]) * f
                     else:
                         sd = gbm_sd[a, k]
-                    x[p, a] += step - 0.5 * sd * sd + sd * e
+                    x[p, a] += step - 0.5 * sd * sd - quanto[a, k] * sd + sd * e
                     if c >= 0:
                         out[p, a, c] = x[p, a]
 
@@ -397,7 +400,8 @@ def _local_vol_paths(z, out, col_of, corr, log_fwd, lv_sd, lv_y0, lv_inv_dy, gbm
 def local_vol_paths(z: np.ndarray, corr: np.ndarray, log_fwd: np.ndarray, lv_sd: np.ndarray,
                     lv_y0: np.ndarray, lv_dy: np.ndarray, gbm_sd: np.ndarray,
                     is_lv: np.ndarray, log_x0: np.ndarray, active: np.ndarray | None = None,
-                    cols: np.ndarray | None = None) -> np.ndarray:
+                    cols: np.ndarray | None = None, quanto: np.ndarray | None = None
+                    ) -> np.ndarray:
     """Log-levels under local volatility (see :func:`_local_vol_paths`) from the normals ``z``
     (paths, assets, fine steps), which are left as they are, in a new array (paths, assets,
     kept steps): after the fine steps ``cols`` (default: every step).
@@ -425,7 +429,9 @@ def local_vol_paths(z: np.ndarray, corr: np.ndarray, log_fwd: np.ndarray, lv_sd:
                      np.ascontiguousarray(1.0 / np.asarray(lv_dy, dtype=np.float64)),
                      np.ascontiguousarray(gbm_sd, dtype=np.float64),
                      np.ascontiguousarray(is_lv, dtype=np.bool_),
-                     log_x0, _active(active, n_a))
+                     log_x0, _active(active, n_a),
+                     np.zeros((n_a, n_s)) if quanto is None
+                     else np.ascontiguousarray(quanto, dtype=np.float64))
     return out
 
 

@@ -203,6 +203,8 @@ class Asset:
     heston_calibrate: bool = False
     #: lsv: the share of the vol of vol kept (None: not given)
     mixing: float | None = None
+    #: the currency the asset is quoted in (None: the market's reporting currency)
+    currency: str | None = None
 
     def __post_init__(self):
         divs = tuple(sorted((d, float(x)) for d, x in self.dividends))
@@ -220,6 +222,17 @@ class Asset:
         if not np.isfinite(self.dividend_yield):
             raise InputError(f"dividend_yield must be a finite number, got {self.dividend_yield}",
                              key=f"assets.{self.name}.dividend_yield")
+
+
+@dataclass(frozen=True, slots=True)
+class FxRate:
+    """An exchange rate: the value of one unit of ``code`` in the reporting currency, and its
+    Black vol. It is an underlying in its own right under its code (Garman and Kohlhagen:
+    it drifts at the reporting currency's rate less ``code``'s)."""
+
+    code: str
+    spot: float
+    vol: VolCurve
 
 
 @dataclass(frozen=True, slots=True)
@@ -246,6 +259,9 @@ class Market:
     source: str | None = field(default=None, compare=False)
     #: issuers' funding spreads over the discount curve, ``(name, zero-spread curve)``
     issuers: tuple[tuple[str, DiscountCurve], ...] = ()
+    #: other currencies' zero curves ``(code, curve)`` and exchange rates
+    curves: tuple[tuple[str, DiscountCurve], ...] = ()
+    fx: tuple[FxRate, ...] = ()
 
     def __post_init__(self):
         if self.day_count not in DAY_COUNTS:
@@ -258,9 +274,14 @@ class Market:
         return tuple(a.name for a in self.assets)
 
     def asset(self, name: str, *, source: str | None = None, key: str | None = None) -> Asset:
+        """The asset ``name``, or the exchange rate of currency ``name`` as an asset (its
+        spot and vol; its forward carries the two currencies' rates: :meth:`carry_df`)."""
         for a in self.assets:
             if a.name == name:
                 return a
+        for x in self.fx:
+            if x.code == name:
+                return Asset(x.code, x.spot, x.vol)
         raise InputError(f"unknown asset {name!r}{did_you_mean(name, self.asset_names)}; the "
                          f"market has {', '.join(self.asset_names) or 'no assets'}",
                          source=source, key=key)
@@ -274,6 +295,63 @@ class Market:
     def df(self, d) -> float | np.ndarray:
         """Discount factor to a date (or dates)."""
         return self.discount.df(self.time(d))
+
+    # -- currencies ----------------------------------------------------------------------
+    def is_fx(self, name: str) -> bool:
+        """Is ``name`` an exchange rate (a currency code with an ``[fx.CODE]`` block)?"""
+        return any(x.code == name for x in self.fx)
+
+    def curve(self, code: str | None) -> DiscountCurve:
+        """The zero curve of currency ``code`` (None or the reporting currency: the discount
+        curve)."""
+        if code is None or code == self.currency:
+            return self.discount
+        for c, curve in self.curves:
+            if c == code:
+                return curve
+        raise InputError(f"no zero curve for {code}: give [curves.{code}]", source=self.source,
+                         key=f"curves.{code}")
+
+    def foreign(self, name: str) -> str | None:
+        """The currency an asset is quoted in when it is not the reporting one, else None (an
+        exchange rate is worth reporting-currency units: None)."""
+        a = next((a for a in self.assets if a.name == name), None)
+        if a is None:  # an exchange rate, or a name the product's check refuses
+            return None
+        c = a.currency
+        return None if c is None or c == self.currency else c
+
+    def carry_df(self, name: str, t):
+        """The discount factor whose inverse the asset's level grows at, before its dividend
+        yield: its own currency's curve; for an exchange rate the reporting curve over the
+        foreign one (``F = X0 DF_for / DF_dom``, Garman and Kohlhagen)."""
+        if self.is_fx(name):
+            return self.discount.df(t) / self.curve(name).df(t)
+        c = self.foreign(name)
+        return self.discount.df(t) if c is None else self.curve(c).df(t)
+
+    def quanto_correlation(self, name: str) -> float:
+        """The correlation of a foreign asset with its currency's exchange rate (the
+        ``[correlation]`` block must name both)."""
+        c = self.foreign(name)
+        if self.correlation is None or name not in self.correlation.assets \
+                or c not in self.correlation.assets:
+            raise InputError(f"{name} is quoted in {c}: its drift in {self.currency} needs its "
+                             f"correlation with the exchange rate {c}; name both in "
+                             "[correlation]", source=self.source, key="correlation")
+        m = self.correlation
+        return float(m.matrix[m.assets.index(name)][m.assets.index(c)])
+
+    def quanto_factor(self, name: str, t):
+        """``exp(-rho int_0^t sigma_S sigma_X)``: a foreign asset's forward under the reporting
+        currency's measure over its own (the quanto drift, with the asset's Black vols); 1
+        for a domestic asset or an exchange rate."""
+        c = self.foreign(name)
+        if c is None:
+            return 1.0
+        fx = next(x for x in self.fx if x.code == c)
+        rho = self.quanto_correlation(name)
+        return np.exp(-rho * integrate_vol_product(self.asset(name).vol, fx.vol, 0.0, t))
 
     def issuer_spread(self, name: str, *, source: str | None = None,
                       key: str | None = "issuer") -> DiscountCurve:
@@ -317,9 +395,9 @@ class Market:
         divs = self.dividend_times(name)
         if divs:
             q = self.asset(name).dividend_yield
-            df_t = self.discount.df(t)
+            df_t = self.carry_df(name, t)
             for ti, x in divs:
-                out = out + np.where(ti > t, x * float(self.discount.df(ti)) / df_t
+                out = out + np.where(ti > t, x * float(self.carry_df(name, ti)) / df_t
                                      * np.exp(q * (ti - t)), 0.0)
         return float(out) if out.ndim == 0 else out
 
@@ -327,11 +405,15 @@ class Market:
         """``X(0) = S(0) - D(0)``: the spot less the present value of the dividends to come."""
         return self.asset(name).spot - float(self.escrow(name, 0.0))
 
-    def x_forward(self, name: str, t) -> float | np.ndarray:
-        """Forward of the escrowed level ``X`` (the whole level without cash dividends)."""
+    def x_forward(self, name: str, t, *, quanto: bool = True) -> float | np.ndarray:
+        """Forward of the escrowed level ``X`` (the whole level without cash dividends), under
+        the reporting currency's measure: a foreign asset's includes the quanto drift
+        (:meth:`quanto_factor`) unless ``quanto`` is False (its own currency's forward)."""
         a = self.asset(name)
         t = np.asarray(t, dtype=float)
-        f = self.escrowed_spot(name) * np.exp(-a.dividend_yield * t) / self.discount.df(t)
+        f = self.escrowed_spot(name) * np.exp(-a.dividend_yield * t) / self.carry_df(name, t)
+        if quanto and self.foreign(name) is not None:
+            f = f * self.quanto_factor(name, t)
         return float(f) if f.ndim == 0 else f
 
     def local_vol(self, names) -> tuple[str, ...]:
@@ -475,6 +557,43 @@ def load_market(path: str | Path) -> Market:
                 raise itab.error(None, f"issuer name {show(name)} must be printable, not "
                                  "blank, without leading or trailing spaces")
             issuers.append((name, zero_curve(itab.table(name), "spread", "spreads", _spread)))
+    curves, fxs = [], []
+    ctab_all = top.table("curves", None)
+    for code in list(ctab_all.data) if ctab_all is not None else []:
+        if code == currency:
+            raise ctab_all.error(code, f"{code} is the reporting currency: its curve is "
+                                 "[discount]")
+        curves.append((code, zero_curve(ctab_all.table(code), "rate", "zero_rates", _rate)))
+    ftab_all = top.table("fx", None)
+    for code in list(ftab_all.data) if ftab_all is not None else []:
+        f = ftab_all.table(code)
+        if code == currency:
+            raise ftab_all.error(code, f"{code} is the reporting currency: its exchange rate "
+                                 "is 1")
+        if code not in dict(curves):
+            raise ftab_all.error(code, f"an exchange rate needs its currency's zero curve: "
+                                 f"give [curves.{code}]")
+        spot = f.number("spot", positive=True, limit=MAX_AMOUNT)
+        if f.has("vol"):
+            if f.has("vol_tenors") or f.has("vols"):
+                raise f.error("vol", "give either 'vol' or 'vol_tenors' + 'vols', not both")
+            fvol = VolCurve.flat(f.check_vol("vol", f.raw("vol")))
+        else:
+            if not f.has("vol_tenors"):
+                raise f.error("vol", "missing required key (or 'vol_tenors' + 'vols')")
+            times = tenor_times(f, "vol_tenors")
+            vols = f.list("vols")
+            if len(vols) != len(times):
+                raise f.error("vols", f"has {len(vols)} values for {len(times)} tenors")
+            fvol = VolCurve(tuple(times), tuple(f.check_vol(f"vols[{i}]", v)
+                                                for i, v in enumerate(vols)),
+                            tuple(str(x) for x in f.list("vol_tenors")))
+        f.finish()
+        fxs.append(FxRate(code, spot, fvol))
+    for code, _ in curves:
+        if not any(x.code == code for x in fxs):
+            raise ctab_all.error(code, f"a curve for {code} but no exchange rate: give "
+                                 f"[fx.{code}] (the value of 1 {code} in {currency})")
 
     assets_tab = top.table("assets")
     if not assets_tab.data:
@@ -485,7 +604,16 @@ def load_market(path: str | Path) -> Market:
             raise assets_tab.error(None, f"asset name {show(name)} must be printable, not "
                                    "blank, without leading or trailing spaces")
         a = assets_tab.table(name)
+        if any(x.code == name for x in fxs):
+            raise assets_tab.error(name, f"{name} is a currency with an exchange rate [fx."
+                                   f"{name}]: an asset needs another name")
         spot = a.number("spot", positive=True, limit=MAX_AMOUNT)
+        ccy = a.string("currency", None)
+        if ccy == currency:
+            ccy = None
+        if ccy is not None and not any(x.code == ccy for x in fxs):
+            raise a.error("currency", f"{ccy} needs its zero curve and exchange rate: give "
+                          f"[curves.{ccy}] and [fx.{ccy}]")
         heston, calibrate, mixing = (parse_heston(a.table("heston")) if a.has("heston")
                                      else (None, False, None))
         model = a.string("model", None)
@@ -539,9 +667,10 @@ def load_market(path: str | Path) -> Market:
         if mixing is not None and model != "lsv":
             raise a.error("heston.mixing", "mixing applies to model = \"lsv\" only")
         asset = Asset(name, spot, vol, q, law, dividends=dividends, model=model,
-                      heston=heston, heston_calibrate=calibrate, mixing=mixing)
+                      heston=heston, heston_calibrate=calibrate, mixing=mixing, currency=ccy)
         if surface is not None:
-            asset = attach_surface(asset, surface, curve, source=src, key=a.key("vol_surface"))
+            own = curve if ccy is None else dict(curves)[ccy]  # quoted in its own currency
+            asset = attach_surface(asset, surface, own, source=src, key=a.key("vol_surface"))
         assets.append(asset)
 
     corr = None
@@ -551,9 +680,10 @@ def load_market(path: str | Path) -> Market:
         for i, n in enumerate(names):
             if not isinstance(n, str):
                 raise ctab.error(f"assets[{i}]", f"expected an asset name, got {n!r}")
-            if n not in assets_tab.data:
+            known = [*assets_tab.data, *(x.code for x in fxs)]
+            if n not in known:
                 raise ctab.error(f"assets[{i}]", f"unknown asset {n!r}"
-                                 f"{did_you_mean(n, list(assets_tab.data))}")
+                                 f"{did_you_mean(n, known)}")
         if len(set(names)) != len(names):
             raise ctab.error("assets", "an asset is listed twice")
         rows = ctab.list("matrix")
@@ -573,7 +703,7 @@ def load_market(path: str | Path) -> Market:
     top.finish()
     market = Market(valuation_date=valuation, currency=currency, discount=curve,
                     assets=tuple(assets), day_count=day_count, correlation=corr, source=src,
-                    issuers=tuple(issuers))
+                    issuers=tuple(issuers), curves=tuple(curves), fx=tuple(fxs))
     for a in market.assets:
         if market.dividend_times(a.name) and not market.escrowed_spot(a.name) > 0:
             raise InputError(f"the dividends to come are worth {market.escrow(a.name, 0.0):g} "

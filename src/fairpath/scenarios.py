@@ -41,6 +41,7 @@ from fairpath.engine import DEFAULT_PATHS, Settings, prepare, run
 from fairpath.errors import InputError
 from fairpath.market import Market
 from fairpath.products.base import Product
+from fairpath.products.currency import settle
 from fairpath.results import CAUTION
 from fairpath.sampling import DEFAULT_REPLICATES
 
@@ -358,7 +359,7 @@ def scenarios(product: Product, market: Market, *, spot_shifts=DEFAULT_SPOT,
                         progress=progress)
     settings.make_sampler()  # refuse bad sampler settings before anything else
     product.check(market, source)
-    product = product.struck(market)
+    product = settle([product.struck(market)], market, source)[0]
     market, div_notes = prepare([product], market, source)
     names = product.underlyings()
 

@@ -60,7 +60,13 @@ class Black(Model):
         caps = set(self.forward_and_scaling())
         if Capability.SPOT_SCALING not in caps:  # cash dividends: levels not lognormal
             return frozenset(caps)
-        caps |= {Capability.LOGNORMAL, Capability.SCORE, Capability.EXACT_BRIDGE}
+        caps |= {Capability.SCORE, Capability.EXACT_BRIDGE}
+        if self.market.foreign(self.name) is not None or self.market.is_fx(self.name):
+            # lognormal, but the closed forms (and the controls priced by them) read a
+            # dividend yield and the discount curve, not another currency's curve or the
+            # quanto drift; and the quanto drift moves with the vol (no pathwise vega)
+            return frozenset(caps)
+        caps.add(Capability.LOGNORMAL)
         vol = self.asset.vol
         if vol.is_flat and vol.vols[0] > 0:
             caps.add(Capability.FLAT_VOL)

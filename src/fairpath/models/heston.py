@@ -193,6 +193,13 @@ class StochSteps(ScalesWithSpot, Stepper):
 
         if isinstance(sub, bool) or not isinstance(sub, int) or sub < 1:
             raise InputError(f"must be a positive integer, got {sub!r}", key="steps_per_day")
+        for m in models:
+            code = m.market.foreign(m.name)
+            if code is not None:
+                raise InputError(f"{m.name} is quoted in {code}: the quanto drift is built for "
+                                 "the black and local-vol models, not yet beside a stochastic "
+                                 "variance; price it under those", source=m.market.source,
+                                 key=f"assets.{m.name}.currency")
         market = models[0].market
         n_a = len(models)
         grid = np.asarray(times, dtype=float)

@@ -50,8 +50,13 @@ class LocalVol(Model):
     @property
     def capabilities(self) -> frozenset[Capability]:
         # the surface's strikes are fractions of the spot: the path in moneyness against the
-        # forward does not depend on the spot, so every level is proportional to it
-        return self.forward_and_scaling()
+        # forward does not depend on the spot, so every level is proportional to it. A foreign
+        # asset's quanto drift moves with its local vol: its mean is not the forward (which
+        # carries the Black vols' quanto term), so no control may rest on it
+        caps = self.forward_and_scaling()
+        if self.market.foreign(self.name) is not None:
+            caps -= {Capability.FORWARD}
+        return caps
 
     @property
     def daily(self) -> bool:
@@ -94,8 +99,17 @@ class LocalSteps(ScalesWithSpot, Stepper):
         starts = np.concatenate([[0.0], fine[:-1]])
         self.dt = fine - starts
         n_a, n_f = len(models), len(fine)
+        # a foreign asset's own forward (its surface's moneyness); the quanto drift is a term
+        # of the steps, with the local vol (``quanto``)
         self.log_fwd = np.stack([np.log(np.asarray(market.x_forward(n, np.concatenate(
-            [[0.0], fine])), dtype=float)) for n in names])
+            [[0.0], fine]), quanto=False), dtype=float)) for n in names])
+        self.quanto = np.zeros((len(names), len(fine)))
+        for i, n in enumerate(names):
+            code = market.foreign(n)
+            if code is not None:
+                fx = market.asset(code).vol
+                self.quanto[i] = market.quanto_correlation(n) * np.sqrt(
+                    integrate_vol_product(fx, fx, starts, fine))
         self.step_sd = np.zeros((n_a, n_f, Y_POINTS))
         self.y0, self.dy = np.zeros(n_a), np.ones(n_a)
         self.gbm_sd = np.zeros((n_a, n_f))
@@ -131,7 +145,8 @@ class LocalSteps(ScalesWithSpot, Stepper):
         """The escrowed log-levels of the ``active`` assets (default: all), on the grid's
         dates (finer than the grid with steps_per_day: only the steps ending on them)."""
         return local_vol_paths(z, self.corr, self.log_fwd, self.step_sd, self.y0, self.dy,
-                               self.gbm_sd, self.is_lv, self.log_start, active, self.grid_cols)
+                               self.gbm_sd, self.is_lv, self.log_start, active, self.grid_cols,
+                               self.quanto)
 
     def restart(self, x0, col, last, rng):
         f0 = 0 if col < 0 else int(self.grid_cols[col]) + 1
@@ -139,11 +154,13 @@ class LocalSteps(ScalesWithSpot, Stepper):
         z = rng.standard_normal((x0.shape[0], x0.shape[1], f1 - f0))
         return local_vol_paths(z, self.corr, self.log_fwd[:, f0:f1 + 1],
                                self.step_sd[:, f0:f1], self.y0, self.dy, self.gbm_sd[:, f0:f1],
-                               self.is_lv, x0, None, self.grid_cols[col + 1:last + 1] - f0)
+                               self.is_lv, x0, None, self.grid_cols[col + 1:last + 1] - f0,
+                               self.quanto[:, f0:f1])
 
     def asset_inputs(self, a: int) -> tuple:
         return (self.sim_times, self.grid_cols, self.log_fwd[a], self.step_sd[a], self.y0[a],
                 self.dy[a], self.gbm_sd[a], self.is_lv[a], self.corr[a], self.log_start[a],
+                self.quanto[a],
                 None if self.escrow is None else self.escrow[a])
 
     def simulate_changed(self, z: np.ndarray, base: PathState, keep: np.ndarray) -> PathState:

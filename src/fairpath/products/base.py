@@ -188,6 +188,10 @@ class Product:
     #: unless ``funding`` is False (an option that carries no issuer risk)
     issuer: str | None = field(default=None, kw_only=True)
     funding: bool = field(default=True, kw_only=True)
+    #: how a payoff on an asset quoted in another currency is paid: "quanto" (the amount in
+    #: reporting units, times ``quanto_rate``) or "converted" (:mod:`fairpath.products.currency`)
+    settlement: str | None = field(default=None, kw_only=True)
+    quanto_rate: float = field(default=1.0, kw_only=True)
 
     def __init_subclass__(cls, **kwargs):
         super(Product, cls).__init_subclass__(**kwargs)

@@ -6,7 +6,7 @@ import warnings
 from pathlib import Path
 
 from fairpath.errors import FairpathWarning, InputError
-from fairpath.inputs import Table, one_line, read_toml, show
+from fairpath.inputs import MAX_AMOUNT, Table, one_line, read_toml, show
 from fairpath.products.base import Product, product_class
 
 
@@ -36,6 +36,13 @@ def product_from_dict(data: dict, *, source: str | None = None) -> Product:
                         "the product names no issuer")
     if issuer is not None:
         kwargs |= {"issuer": issuer, "funding": funding}
+    settlement = tab.string("settlement", None, choices=("quanto", "converted"))
+    if tab.has("quanto_rate"):
+        if settlement != "quanto":
+            raise tab.error("quanto_rate", "a quanto rate applies to settlement = \"quanto\"")
+        kwargs["quanto_rate"] = tab.number("quanto_rate", positive=True, limit=MAX_AMOUNT)
+    if settlement is not None:
+        kwargs["settlement"] = settlement
     tab.finish()
     try:
         product = cls(**kwargs, source=source)
