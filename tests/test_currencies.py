@@ -308,3 +308,37 @@ def test_settlement_on_a_note_or_a_domestic_asset_is_refused(tmp_path, capsys):
     code, out, err = run(["price", tmp_path / "q.toml", "--market", tmp_path / "m.toml",
                           "--paths", "4096"], capsys)
     assert_bad_input(code, out, err, "settlement", "quoted in EUR")
+
+
+def test_greeks_name_the_exchange_rate(tmp_path):
+    # quanto call: the exchange rate is not simulated, but its vol and its correlation with
+    # the share move the drift; against finite differences of Haug's closed form (5.16)
+    m = market(tmp_path)
+    t = m.time(EXPIRY)
+    g = fp.greeks(product_from_dict(call("SPRUCE", 105.0, settlement="quanto")), m,
+                  paths=16384, seed=8, dividends=False)
+
+    def closed(sfx=0.1, rho=0.3, rf=0.05):
+        return cf.quanto_price(100, 105, t, 0.08, rf, 0.04, 0.2, sfx, rho, "call")
+
+    h = 1e-5
+    for greek, ref in ((g.vega["USD"], (closed(sfx=0.1 + h) - closed(sfx=0.1 - h)) / (2 * h)),
+                       (g.correlation["SPRUCE/USD"],
+                        (closed(rho=0.3 + h) - closed(rho=0.3 - h)) / (2 * h)),
+                       (g.rho_curves["USD"],
+                        (closed(rf=0.05 + h) - closed(rf=0.05 - h)) / (2 * h))):
+        assert abs(greek.value - ref) <= 4 * greek.stderr + 1e-3 * abs(ref), (greek, ref)
+    assert "USD" not in g.delta  # a quanto payoff does not move with the rate's level
+    # converted call: V = X x (the USD price), so delta to the rate is the USD price, and the
+    # EUR curve and the correlation do not matter (QuantLib's analytic European on USD)
+    c = fp.greeks(product_from_dict(call("SPRUCE", 105.0, settlement="converted")), m,
+                  seed=8)
+    proc = ql.BlackScholesMertonProcess(ql.QuoteHandle(ql.SimpleQuote(100.0)), _flat(0.04),
+                                        _flat(0.05), _vol(0.2))
+    opt = ql.EuropeanOption(ql.PlainVanillaPayoff(ql.Option.Call, 105.0),
+                            ql.EuropeanExercise(ql.Date(1, 6, 2027)))
+    opt.setPricingEngine(ql.AnalyticEuropeanEngine(proc))
+    assert abs(c.delta["USD"].value - opt.NPV()) <= 4 * c.delta["USD"].stderr + 1e-4
+    assert abs(c.rho.value) < 1e-6 and not c.correlation["SPRUCE/USD"].significant
+    assert "USD" not in c.dividend
+    assert set(c.to_dict()["greeks"]["rho_curves"]) == {"USD"}

@@ -36,8 +36,8 @@ def _reattach(market: Market, asset, curve: DiscountCurve | None = None, surface
     surface = asset.surface if surface is None else surface
     if surface is None:
         return asset
-    return attach_surface(asset, surface, curve or market.discount, source=market.source,
-                          key=f"assets.{asset.name}.vol_surface")
+    return attach_surface(asset, surface, curve or market.curve(asset.currency),
+                          source=market.source, key=f"assets.{asset.name}.vol_surface")
 
 
 def spot(market: Market, name: str, factor: float) -> Market:
@@ -116,10 +116,22 @@ def _heston_vol(market: Market, a, dv: float, parallel: bool):
 
 
 def rates(market: Market, dr: float) -> Market:
-    """Every zero rate moved by ``dr``; surfaces re-attached to the new forwards."""
+    """Every zero rate of the reporting currency moved by ``dr``; its assets' surfaces
+    re-attached to the new forwards (an asset quoted in another currency keeps its own)."""
     curve = market.discount.shifted(dr)
-    assets = tuple(_reattach(market, a, curve) for a in market.assets)
+    assets = tuple(_reattach(market, a, curve) if market.foreign(a.name) is None else a
+                   for a in market.assets)
     return dataclasses.replace(market, discount=curve, assets=assets)
+
+
+def curve_rates(market: Market, code: str, dr: float) -> Market:
+    """Every zero rate of currency ``code``'s curve moved by ``dr`` (its exchange rate's
+    forward moves, and the surfaces of the assets quoted in it are re-attached)."""
+    curve = market.curve(code).shifted(dr)
+    out = market.with_curve(code, curve)
+    return dataclasses.replace(out, assets=tuple(
+        _reattach(out, a, curve) if market.foreign(a.name) == code else a
+        for a in market.assets))
 
 
 def dividend_yield(market: Market, name: str, dq: float) -> Market:

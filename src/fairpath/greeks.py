@@ -148,6 +148,8 @@ class GreeksResult:
     #: per 1.00 of the issuer's funding spread (a parallel shift), where the product has one
     spread: Greek | None = None
     issuer: str | None = None
+    #: per other currency in play: per 1.00 of a parallel shift of its zero curve
+    rho_curves: dict[str, Greek] = field(default_factory=dict)
 
     def _per_asset(self) -> list[tuple[str, dict]]:
         return [("delta", self.delta), ("gamma", self.gamma), ("vega", self.vega),
@@ -177,6 +179,9 @@ class GreeksResult:
                 g[kind] = {**v.to_dict(), **self._desk(kind, "", v)}
         if self.spread is not None:
             g["spread"]["issuer"] = self.issuer
+        if self.rho_curves:
+            g["rho_curves"] = {c: {**v.to_dict(), **self._desk("rho", "", v)}
+                               for c, v in self.rho_curves.items()}
         out = {"price": self.price, "stderr": self.stderr, "greeks": g,
                "currency": self.currency, "paths": self.paths, "sampler": self.sampler,
                "seed": self.seed, "seconds": round(self.seconds, 6), "bumps": self.bumps,
@@ -203,6 +208,7 @@ class GreeksResult:
             out += [("vega bucket", f"{a} {b}", v) for b, v in buckets.items()]
         if self.rho is not None:
             out.append(("rho", "", self.rho))
+        out += [("rho", c, v) for c, v in self.rho_curves.items()]
         if self.theta is not None:
             out.append(("theta", "", self.theta))
         if self.spread is not None:
@@ -379,8 +385,13 @@ def greeks(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
             for sb in (1, -1):
                 m2 = bump.spot(bump.spot(market, a, 1 + sa * SPOT_BUMP), b, 1 + sb * SPOT_BUMP)
                 scen.append((f"S{sa:+d}{sb:+d} {a}/{b}", m2))
-    dvs = {n: bump.vol_bump_size(market, n, VOL_BUMP) for n in names}
-    for n in names:
+    # the exchange rates in play: simulated (a converted payoff, an option on the rate), or
+    # only in a foreign asset's quanto drift (their vol and correlation move it)
+    codes = sorted({c for c in (market.foreign(n) for n in names) if c}
+                   | {n for n in names if market.is_fx(n)})
+    drift_only = [c for c in codes if c not in names]
+    dvs = {n: bump.vol_bump_size(market, n, VOL_BUMP) for n in (*names, *drift_only)}
+    for n in (*names, *drift_only):
         scen.append((f"v+ {n}", bump.vol(market, n, dvs[n])))
         scen.append((f"v- {n}", bump.vol(market, n, -dvs[n])))
     if any(dv < VOL_BUMP for dv in dvs.values()):
@@ -388,6 +399,9 @@ def greeks(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
                         f"smaller ({', '.join(f'{n}: {dv:g}' for n, dv in dvs.items())})")
     scen.append(("r+", bump.rates(market, RATE_BUMP)))
     scen.append(("r-", bump.rates(market, -RATE_BUMP)))
+    for c in codes:  # each other currency's curve
+        scen.append((f"r+ {c}", bump.curve_rates(market, c, RATE_BUMP)))
+        scen.append((f"r- {c}", bump.curve_rates(market, c, -RATE_BUMP)))
     funding = product.funding_curve(market, source)
     if funding is not None:  # the issuer's funding spread, a parallel shift
         for label, dr in (("f+", RATE_BUMP), ("f-", -RATE_BUMP)):
@@ -406,7 +420,8 @@ def greeks(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
         scen.append(("t+1d", later))
         scen.append(("t-1d", earlier))
     # correlation: each pair of the product's assets, and every pair together
-    corr_pairs = [(a, b) for i, a in enumerate(names) for b in names[i + 1:]] \
+    corr_pairs = [*((a, b) for i, a in enumerate(names) for b in names[i + 1:]),
+                  *((n, market.foreign(n)) for n in names if market.foreign(n) in drift_only)] \
         if correlation else []
     corr_done: list[str] = []
     skipped: list[str] = []
@@ -430,7 +445,8 @@ def greeks(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
                      + "; ".join(skipped))
     # dividends: the yield of each asset; the announced cash amounts where there are some
     cash = [n for n in names if market.dividend_times(n)] if dividends else []
-    for n in names if dividends else []:
+    yields = [n for n in names if not market.is_fx(n)] if dividends else []  # a rate pays none
+    for n in yields:
         scen.append((f"q+ {n}", bump.dividend_yield(market, n, DIV_BUMP)))
         scen.append((f"q- {n}", bump.dividend_yield(market, n, -DIV_BUMP)))
     for n in cash:
@@ -595,6 +611,12 @@ def greeks(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
                                  Estimator(LIKELIHOOD_RATIO, "cross", f"{a}/{b}"))
     rho = combo({index["r+"]: 0.5 / RATE_BUMP, index["r-"]: -0.5 / RATE_BUMP},
                 "bump (central, common numbers)")
+    rho_curves = {c: combo({index[f"r+ {c}"]: 0.5 / RATE_BUMP, index[f"r- {c}"]: -0.5 / RATE_BUMP},
+                           "bump (central, common numbers)") for c in codes}
+    for c in drift_only:  # the quanto drift's exchange-rate vol
+        vega[c] = combo({index[f"v+ {c}"]: 0.5 / dvs[c], index[f"v- {c}"]: -0.5 / dvs[c]},
+                        "bump (central, common numbers); the exchange rate's vol in the "
+                        "quanto drift")
     spread = None if funding is None else \
         combo({index["f+"]: 0.5 / RATE_BUMP, index["f-"]: -0.5 / RATE_BUMP},
               "bump (central, common numbers)")
@@ -608,7 +630,7 @@ def greeks(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
                        central + ("; every pair together" if lab == "all" else ""))
             for lab in corr_done}
     divs = {n: combo({index[f"q+ {n}"]: 0.5 / DIV_BUMP, index[f"q- {n}"]: -0.5 / DIV_BUMP},
-                     central) for n in (names if dividends else ())}
+                     central) for n in yields}
     cash_divs = {n: combo({index[f"D+ {n}"]: 0.5 / CASH_DIV_BUMP,
                            index[f"D- {n}"]: -0.5 / CASH_DIV_BUMP}, central) for n in cash}
     vega_b: dict[str, dict[str, Greek]] = {}
@@ -648,12 +670,13 @@ def greeks(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
             for d in (delta, gamma, vega, cross, corr, divs, cash_divs))
         vega_b = {a: {k: flag(v) for k, v in d.items()} for a, d in vega_b.items()}
         rho, theta, spread = flag(rho), flag(theta), flag(spread)
+        rho_curves = {k: flag(v) for k, v in rho_curves.items()}
     return GreeksResult(base.value, base.stderr, market.currency, delta, gamma, vega, cross,
                         rho, theta, paths, smp.name, smp.seed, time.perf_counter() - t0, bumps,
                         tuple(notes), corr, divs, cash_divs, vega_b,
                         {n: market.asset(n).spot for n in names},
                         getattr(product, "notional", None), spread,
-                        product.issuer if funding is not None else None)
+                        product.issuer if funding is not None else None, rho_curves)
 
 
 def greek_profile(product: Product, market: Market, asset: str | None = None,

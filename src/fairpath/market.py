@@ -485,8 +485,18 @@ class Market:
 
     # -- bumps (value semantics: a new market each time) -------------------------------
     def with_asset(self, asset: Asset) -> Market:
+        """The market with ``asset`` replaced (an exchange rate's code: its spot and vol)."""
+        if self.is_fx(asset.name):
+            return dataclasses.replace(self, fx=tuple(
+                FxRate(x.code, asset.spot, asset.vol) if x.code == asset.name else x
+                for x in self.fx))
         return dataclasses.replace(
             self, assets=tuple(asset if a.name == asset.name else a for a in self.assets))
+
+    def with_curve(self, code: str, curve: DiscountCurve) -> Market:
+        """The market with currency ``code``'s zero curve replaced (not the reporting one)."""
+        return dataclasses.replace(self, curves=tuple(
+            (c, curve if c == code else k) for c, k in self.curves))
 
     def with_law(self, law: Law, names=None) -> Market:
         """The market with every asset's (or the named assets') shock law replaced."""
