@@ -336,8 +336,11 @@ def check_quote(product: Product, market: Market, quote: float, *, vol_band: flo
     base = price(product, market, **settings)
     prices = [base.price]
     if vol_band > 0:
+        # the exchange rates of foreign assets move too (their vol enters the quanto drift)
+        moved = (*names, *sorted({c for c in (market.foreign(n) for n in names)
+                                  if c and c not in names}))
         for shift in (-vol_band, vol_band):
-            prices.append(price(product, _with_vols(market, names, shift=shift),
+            prices.append(price(product, _with_vols(market, moved, shift=shift),
                                 **settings).price)
     se = base.stderr
     vol_low = min(prices) - BAND_STDERRS * se
@@ -718,7 +721,8 @@ def write_report(path: str | Path, checks: list[QuoteCheck], market: Market, set
         run_settings.setdefault(k, v)
     if run_settings.get("seed") in (None, "default"):
         run_settings["seed"] = normalize_seed(None)
-    assets = "".join(f"<tr><td>{html.escape(a.name)}</td><td>{a.spot:g}</td>"
+    assets = "".join(f"<tr><td>{html.escape(a.name)}</td><td>{a.spot:g}"
+                     f"{' ' + html.escape(a.currency) if a.currency else ''}</td>"
                      f"<td>{html.escape(_vols_text(a.vol))}</td>"
                      f"<td>{a.dividend_yield:g}</td><td>{html.escape(a.law.describe())}</td>"
                      "</tr>" for a in market.assets)
@@ -730,6 +734,10 @@ def write_report(path: str | Path, checks: list[QuoteCheck], market: Market, set
     curve = curve_text(market.discount)
     issuers = "".join(f"; {html.escape(n)}'s funding spread {html.escape(curve_text(c))}"
                       for n, c in market.issuers)
+    issuers += "".join(f"; {html.escape(c)} zero rates {html.escape(curve_text(k))}"
+                       for c, k in market.curves)
+    issuers += "".join(f"; 1 {html.escape(x.code)} = {x.spot:g} {html.escape(market.currency)}"
+                       f" (vol {html.escape(_vols_text(x.vol))})" for x in market.fx)
     run = "".join(f"<tr><td>{html.escape(k)}</td><td>{html.escape(str(v))}</td></tr>"
                   for k, v in {**run_settings, "fairpath": __version__,
                                "numpy": numpy.__version__, "scipy": scipy.__version__,
