@@ -30,6 +30,7 @@ from hypothesis import strategies as st
 from scipy.stats import norm
 
 import fairpath as fp
+from qltools import evaluation_date
 
 VAL = date(2026, 12, 1)
 SPOT, VOL, RATE, DIV = 100.0, 0.25, 0.05, 0.02
@@ -65,11 +66,8 @@ def qd(d: date) -> ql.Date:
 
 @pytest.fixture(autouse=True, scope="module")
 def _ql_evaluation_date():
-    settings_ = ql.Settings.instance()
-    saved = settings_.evaluationDate
-    settings_.evaluationDate = _TODAY
-    yield
-    settings_.evaluationDate = saved
+    with evaluation_date(_TODAY):
+        yield
 
 
 def ql_process(spot=SPOT, vol=VOL, rate=RATE, q=DIV):

@@ -35,6 +35,7 @@ from scipy.stats import norm
 
 import fairpath as fp
 from fairpath import closed_form as cf
+from qltools import evaluation_date
 
 VAL = date(2026, 12, 1)
 RIGHTS = ("call", "put")
@@ -72,11 +73,8 @@ _QL_RIGHT = {"call": ql.Option.Call, "put": ql.Option.Put}
 
 @pytest.fixture(autouse=True, scope="module")
 def _ql_evaluation_date():
-    settings_ = ql.Settings.instance()
-    saved = settings_.evaluationDate
-    settings_.evaluationDate = _TODAY
-    yield
-    settings_.evaluationDate = saved
+    with evaluation_date(_TODAY):
+        yield
 
 
 def ql_barrier(right, direction, effect, S, K, H, rebate, expiry, r, q, vol, dc):

@@ -30,6 +30,7 @@ from hypothesis import strategies as st
 from scipy.stats import norm
 
 import fairpath as fp
+from qltools import evaluation_date
 
 VAL = date(2026, 12, 1)
 EXPIRY = date(2027, 12, 1)  # T = 1 (ACT/365F)
@@ -71,11 +72,8 @@ _PAYOFF = {"worst": ql.MinBasketPayoff, "best": ql.MaxBasketPayoff,
 
 @pytest.fixture(autouse=True, scope="module")
 def _ql_evaluation_date():
-    settings_ = ql.Settings.instance()
-    saved = settings_.evaluationDate
-    settings_.evaluationDate = _TODAY
-    yield
-    settings_.evaluationDate = saved
+    with evaluation_date(_TODAY):
+        yield
 
 
 def ql_process(vol, q, spot=100.0, rate=RATE):

@@ -31,6 +31,7 @@ from fairpath.closed_form import (
     forward,
 )
 from fairpath.errors import InputError
+from qltools import evaluation_date
 
 GREEKS = ("price", "delta", "gamma", "vega", "rho", "theta")
 RIGHTS = ("call", "put")
@@ -119,11 +120,8 @@ _DC = ql.Actual365Fixed()  # year fraction = days / 365 exactly, so T = days / 3
 
 @pytest.fixture(autouse=True, scope="module")
 def _ql_evaluation_date():
-    settings_ = ql.Settings.instance()
-    saved = settings_.evaluationDate
-    settings_.evaluationDate = _TODAY
-    yield
-    settings_.evaluationDate = saved
+    with evaluation_date(_TODAY):
+        yield
 
 
 def _ql_option(payoff, S, days, r, q, sig):

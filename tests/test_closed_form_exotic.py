@@ -36,6 +36,7 @@ from fairpath.closed_form import (
     geometric_asian_discrete,
 )
 from fairpath.errors import InputError
+from qltools import evaluation_date
 
 RIGHTS = ("call", "put")
 DIRECTIONS = ("down", "up")
@@ -55,11 +56,8 @@ _DC = ql.Actual365Fixed()  # year fraction = days / 365 exactly, so T = days / 3
 
 @pytest.fixture(autouse=True, scope="module")
 def _ql_evaluation_date():
-    settings_ = ql.Settings.instance()
-    saved = settings_.evaluationDate
-    settings_.evaluationDate = _TODAY
-    yield
-    settings_.evaluationDate = saved
+    with evaluation_date(_TODAY):
+        yield
 
 
 def _ql_process(S, r, q, sig, dc=_DC):

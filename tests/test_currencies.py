@@ -26,6 +26,7 @@ import fairpath as fp
 from clitools import assert_bad_input, run
 from fairpath import closed_form as cf
 from fairpath.products import product_from_dict
+from qltools import evaluation_date
 
 VAL = date(2026, 12, 1)
 EXPIRY = date(2027, 6, 1)
@@ -54,11 +55,8 @@ matrix = [[1.0, RHO], [RHO, 1.0]]
 
 @pytest.fixture(autouse=True, scope="module")
 def _ql_evaluation_date():
-    settings_ = ql.Settings.instance()
-    saved = settings_.evaluationDate
-    settings_.evaluationDate = _TODAY
-    yield
-    settings_.evaluationDate = saved
+    with evaluation_date(_TODAY):
+        yield
 
 
 def market(tmp_path, rho=0.3, text=MARKET) -> fp.Market:

@@ -42,6 +42,7 @@ import QuantLib as ql
 import fairpath as fp
 from clitools import assert_bad_input, run
 from fairpath.products import product_from_dict
+from qltools import evaluation_date
 
 VAL = date(2026, 12, 1)
 _TODAY = ql.Date(VAL.day, VAL.month, VAL.year)
@@ -50,11 +51,8 @@ _DC = ql.Actual365Fixed()
 
 @pytest.fixture(autouse=True, scope="module")
 def _ql_evaluation_date():
-    settings_ = ql.Settings.instance()
-    saved = settings_.evaluationDate
-    settings_.evaluationDate = _TODAY
-    yield
-    settings_.evaluationDate = saved
+    with evaluation_date(_TODAY):
+        yield
 
 
 def qdate(d: date) -> ql.Date:
