@@ -193,7 +193,7 @@ def test_demo_smile_fits_and_is_deterministic():
     # the demo surfaces are SSVI samples, not Heston: the fit is approximate, and reported
     # as such. The RMSE must be below the refusal threshold and the fit reproducible
     m = load_market(DEMO_SMILE)
-    for name in m.asset_names:
+    for name in (a.name for a in m.assets if a.surface is not None):  # not SPRUCE, TARNO
         fit = fit_heston(m, name, starts=1)
         assert 0 < fit.rmse_vol_points < cal.MAX_RMSE_VOL_POINTS
         rms = math.sqrt(np.mean([q.error_vol_points ** 2 for q in fit.quotes]))

@@ -25,7 +25,10 @@ ROOT = Path(__file__).resolve().parents[1]
 MARKET = ROOT / "markets" / "demo.toml"
 PAYOFFS = ROOT / "payoffs"
 CALL = PAYOFFS / "european_call.toml"
-DEMO_MATRIX = "[[1.0, 0.6, 0.4],\n          [0.6, 1.0, 0.5],\n          [0.4, 0.5, 1.0]]"
+#: the first three rows of the demo market's correlation matrix (NORDA, KELPA, VIREO)
+DEMO_MATRIX = ("[[1.0,  0.6,  0.4,  0.45,  0.35,  0.0,   0.0],\n"
+               "          [0.6,  1.0,  0.5,  0.4,   0.3,   0.0,   0.0],\n"
+               "          [0.4,  0.5,  1.0,  0.5,   0.3,   0.0,   0.0],")
 CONTRACT_KEYS = ["price", "stderr", "ci95", "paths", "currency", "sampler", "seed", "seconds"]
 
 # reference: QuantLib Black formula for the demo call (K = 105, T = 1): F = 100 e^{0.01},
@@ -258,13 +261,17 @@ def test_bad_product(tmp_path, capsys, old, new, fragments):
 MARKET_VARIANTS = [
     ("negative vol", "vol = 0.25", "vol = -0.25", ["assets.NORDA.vol", "negative"]),
     ("zero spot", "spot = 100.0", "spot = 0.0", ["assets.NORDA.spot", "positive"]),
-    ("correlation not symmetric", "[0.6, 1.0, 0.5]", "[0.6, 1.0, -0.9]",
+    ("correlation not symmetric", "[0.6,  1.0,  0.5,", "[0.6,  1.0,  -0.9,",
      ["correlation.matrix", "not symmetric"]),
-    # equicorrelation -0.6 on three assets: eigenvalues 1 + 2(-0.6) = -0.2 and 1.6 (by hand)
+    # NORDA, KELPA and VIREO at 0.99, 0.99 and -0.99: that block alone has the eigenvalue
+    # 1 - 0.99 - 0.99 - ... < 0 (the vector (1, -1, -1) gives 3 - 2(0.99 + 0.99 - 0.99) < 0)
     ("correlation not PSD", DEMO_MATRIX,
-     "[[1.0, -0.6, -0.6], [-0.6, 1.0, -0.6], [-0.6, -0.6, 1.0]]",
-     ["correlation.matrix", "smallest eigenvalue -0.2"]),
-    ("correlation unknown asset", '"VIREO"]', '"VIRE0"]', ["correlation.assets[2]", "VIRE0"]),
+     "[[1.0,  0.99, 0.99, 0.45,  0.35,  0.0,   0.0],\n"
+     "          [0.99, 1.0, -0.99, 0.4,   0.3,   0.0,   0.0],\n"
+     "          [0.99, -0.99, 1.0, 0.5,   0.3,   0.0,   0.0],",
+     ["correlation.matrix", "smallest eigenvalue"]),
+    ("correlation unknown asset", '"VIREO", "SPRUCE"', '"VIRE0", "SPRUCE"',
+     ["correlation.assets[2]", "VIRE0"]),
     ("unknown day count", '"ACT/365F"', '"ACT/365"', ["day_count", "ACT/360"]),
     ("broken TOML", "spot = 100.0", "spot = = 100.0", ["not valid TOML"]),
 ]

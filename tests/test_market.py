@@ -50,8 +50,30 @@ def demo() -> Market:
     return load_market(DEMO)
 
 
+@pytest.fixture(scope="module")
+def domestic(tmp_path_factory) -> Market:
+    """The demo market's three euro shares (:func:`demo_text`)."""
+    p = tmp_path_factory.mktemp("demo") / "demo.toml"
+    p.write_text(demo_text(), encoding="utf-8")
+    return load_market(p)
+
+
 def demo_text() -> str:
-    return DEMO.read_text(encoding="utf-8")
+    """markets/demo.toml with its foreign shares, issuer, curves and exchange rates cut out,
+    and the correlation block of its three euro shares (the checks below edit that block;
+    the currencies have their own in tests/test_currencies.py)."""
+    text = DEMO.read_text(encoding="utf-8")
+    text = text[:text.index("[assets.SPRUCE]")] + text[text.index("[correlation]"):]
+    return (text[:text.index("[correlation]")] + '[correlation]\nassets = ["NORDA", "KELPA", '
+            '"VIREO"]\n' + DEMO_MATRIX + "\n")
+
+
+def test_the_demo_market_carries_two_foreign_shares(demo):
+    assert demo.asset_names == ("NORDA", "KELPA", "VIREO", "SPRUCE", "TARNO")
+    assert demo.foreign("SPRUCE") == "USD" and demo.foreign("TARNO") == "CHF"
+    assert demo.correlation.assets[-2:] == ("USD", "CHF")
+    np.testing.assert_array_equal(demo.correlation.array()[:3, :3],
+                                  [[1.0, 0.6, 0.4], [0.6, 1.0, 0.5], [0.4, 0.5, 1.0]])
 
 
 def write_variant(tmp_path: Path, old: str, new: str, name: str = "market.toml") -> Path:
@@ -78,11 +100,11 @@ vol = 0.2
 # ---------------------------------------------------------------------------------------------
 # The demo market
 # ---------------------------------------------------------------------------------------------
-def test_demo_market_loads(demo):
+def test_demo_market_loads(domestic):
+    demo = domestic
     assert demo.valuation_date == VAL
     assert demo.currency == "EUR"
     assert demo.day_count == "ACT/365F"
-    assert demo.source == str(DEMO)
     assert demo.asset_names == ("NORDA", "KELPA", "VIREO")
     norda, kelpa, vireo = demo.assets
     assert (norda.spot, norda.dividend_yield, norda.vol) == (100.0, 0.02, VolCurve.flat(0.25))
