@@ -241,8 +241,9 @@ BUMPED_FILES = {
                      lambda m: bumps.vol(m, "NORDA", 0.01, tenor=2)),
     "dividend yield": (lambda t: t.replace("dividend_yield = 0.005", "dividend_yield = 0.006"),
                        lambda m: bumps.dividend_yield(m, "KELPA", 0.001)),
-    "correlation": (lambda t: t.replace("matrix = [[1.0, 0.6, 0.4],\n          [0.6, 1.0, 0.5]",
-                                        "matrix = [[1.0, 0.61, 0.4],\n          [0.61, 1.0, 0.5]"),
+    "correlation": (lambda t: t.replace("matrix = [[1.0,  0.6,  0.4,",
+                                        "matrix = [[1.0,  0.61, 0.4,").replace(
+                        "[0.6,  1.0,  0.5,", "[0.61, 1.0,  0.5,"),
                     lambda m: bumps.correlation(m, [("NORDA", "KELPA")], 0.01)),
     "valuation date": (lambda t: t.replace("valuation_date = 2026-12-01",
                                            "valuation_date = 2026-12-02"),

@@ -85,7 +85,8 @@ def numeric_keys(product: Product) -> list[str]:
     out = []
     for f in dataclasses.fields(product):
         v = getattr(product, f.name)
-        if isinstance(v, float | int) and not isinstance(v, bool) and f.name != "coupons_owed":
+        if isinstance(v, float | int) and not isinstance(v, bool) and \
+                f.name not in ("coupons_owed", "quanto_rate"):  # a count; a settlement term
             out.append(f.name)
     return out
 
