@@ -106,9 +106,6 @@ def dual_bounds(product, market, lower: float, lower_se: float, *, seed: int | N
     """Andersen and Broadie's upper bound for the holder of ``product`` (fitted), given its
     lower bound ``lower`` (stderr ``lower_se``) from the pricing run. For an issuer-callable
     note the price is the upper bound and this gives the lower one (:func:`issuer_bounds`)."""
-    from fairpath.engine import Simulation
-    from fairpath.sampling import make_sampler
-
     check_dual(product, market, source)
     if not isinstance(product, EarlyExercise):
         return issuer_bounds(product, market, lower, lower_se, seed=seed,
@@ -116,18 +113,14 @@ def dual_bounds(product, market, lower: float, lower_se: float, *, seed: int | N
                              source=source)
     if product.policy is None:
         raise InputError("the product must be fitted before its bounds", key="--dual")
-    smp = make_sampler("pseudo", seed=seed, stream_key=(DUAL_STREAM,))
-    sim = Simulation([product], market, smp, [[]], source, steps_per_day)
+    sim, ps = _outer_paths(product, market, seed, steps_per_day, outer, source)
     stepper = sim.stepper
-    z = smp.normals(smp.plan(outer), sim.factors, sim.sim_times)
-    ps = sim.pathsets(stepper.simulate(z).log_levels)[0]
     dates, levels, values, dfs = product._state(ps)
     norm, extra, floor = product.regressors(levels, dates, market)
     h = values * dfs[None, :] * product.size  # (outer, dates), discounted to today
     m = len(dates)
     cols = [sim.grid_dates.index(d) for d in dates]
-    rng = np.random.default_rng(np.random.SeedSequence(
-        entropy=0 if seed is None else seed, spawn_key=(DUAL_STREAM, 1)))
+    rng = _inner_rng(seed, 1)
     cont = np.zeros((outer, m))  # C_k: the policy's value from after date k, per outer path
     for k in range(m - 1):
         cont[:, k] = _inner_values(product, market, stepper, ps.grid_log_levels[:, :, cols[k]],
@@ -167,21 +160,13 @@ def issuer_bounds(note, market, upper: float, upper_se: float, *, seed: int | No
     restarted from the outer path's levels, coupons owed and barrier state on that date; ``M``
     moves by ``L_k - C_{k-1}`` (``C`` before the first call date: the price). The paths
     continue after the policy's call (the martingale is the state's, not the policy's)."""
-    from fairpath.engine import Simulation
-    from fairpath.sampling import make_sampler
-
     if note.call_policy is None:
         raise InputError("the note must be fitted before its bounds", key="--dual")
-    smp = make_sampler("pseudo", seed=seed, stream_key=(DUAL_STREAM,))
-    sim = Simulation([note], market, smp, [[]], source, steps_per_day)
-    stepper = sim.stepper
-    z = smp.normals(smp.plan(outer), sim.factors, sim.sim_times)
-    ps = sim.pathsets(stepper.simulate(z).log_levels)[0]
+    sim, ps = _outer_paths(note, market, seed, steps_per_day, outer, source)
     rec: dict = {}
     note._evaluate(ps, False, record=rec)
     cash = np.cumsum(rec["flows"], axis=1) * note.notional  # paid up to each date, today's value
-    rng = np.random.default_rng(np.random.SeedSequence(
-        entropy=0 if seed is None else seed, spawn_key=(DUAL_STREAM, 2)))
+    rng = _inner_rng(seed, 2)
     calls = sorted(rec["calls"])
     m = len(calls) + 1
     h = np.empty((outer, m))
@@ -217,17 +202,12 @@ def _note_inner_values(note, market, sim, log_levels: np.ndarray, start, owed: n
 
     stepper = sim.stepper
     col = sim.grid_dates.index(start)
-    last = len(sim.grid_dates) - 1
     escrow = stepper.escrow
-    x0 = log_levels if escrow is None else np.log(np.exp(log_levels) - escrow[None, :, col])
     grid = sim.grid_dates[col + 1:]
     obs_index = [grid.index(d) if d > start else -1 for d in note.observations]
-    n_out = x0.shape[0]
-    out = np.empty(n_out)
-    chunk = max(1, (1 << 15) // inner)
-    for o0 in range(0, n_out, chunk):
-        o1 = min(o0 + chunk, n_out)
-        x = stepper.restart(np.repeat(x0[o0:o1], inner, axis=0), col, last, rng)
+    out = np.empty(log_levels.shape[0])
+    for o0, o1, x in _restarted(stepper, log_levels, col, len(sim.grid_dates) - 1, inner, rng,
+                                1 << 15):
         if escrow is not None:
             x = np.log(np.exp(x) + escrow[None, :, col + 1:])
         paths = PathSet.from_log_levels(market, sim.names, note.observations, obs_index,
@@ -247,16 +227,10 @@ def _inner_values(product, market, stepper, log_levels: np.ndarray, col: int, da
     """Per outer path: the mean discounted cash of ``inner`` paths restarted from its
     log-levels ``log_levels`` (outer, assets) at grid column ``col`` and exercised by the
     frozen policy on ``dates`` (grid columns ``cols``)."""
-    n_out, n_a = log_levels.shape
-    last = cols[-1]
     escrow = stepper.escrow
-    x0 = log_levels if escrow is None else np.log(np.exp(log_levels) - escrow[None, :, col])
     take = np.asarray(cols) - col - 1
-    out = np.empty(n_out)
-    chunk = max(1, (1 << 16) // inner)
-    for o0 in range(0, n_out, chunk):
-        o1 = min(o0 + chunk, n_out)
-        x = stepper.restart(np.repeat(x0[o0:o1], inner, axis=0), col, last, rng)
+    out = np.empty(log_levels.shape[0])
+    for o0, o1, x in _restarted(stepper, log_levels, col, cols[-1], inner, rng, 1 << 16):
         levels = np.exp(x[:, :, take])
         if escrow is not None:
             levels += escrow[None, :, cols]
@@ -266,6 +240,39 @@ def _inner_values(product, market, stepper, log_levels: np.ndarray, col: int, da
                                floor)
         out[o0:o1] = cash.reshape(o1 - o0, inner).mean(axis=1)
     return out
+
+
+def _outer_paths(product, market, seed: int | None, steps_per_day: int, outer: int,
+                 source: str | None):
+    """The simulation of ``product`` and its ``outer`` paths, from the duality's own stream."""
+    from fairpath.engine import Simulation
+    from fairpath.sampling import make_sampler
+
+    smp = make_sampler("pseudo", seed=seed, stream_key=(DUAL_STREAM,))
+    sim = Simulation([product], market, smp, [[]], source, steps_per_day)
+    z = smp.normals(smp.plan(outer), sim.factors, sim.sim_times)
+    return sim, sim.pathsets(sim.stepper.simulate(z).log_levels)[0]
+
+
+def _inner_rng(seed: int | None, which: int) -> np.random.Generator:
+    """The inner paths' generator (``which``: the holder's bound 1, the issuer's 2)."""
+    return np.random.default_rng(np.random.SeedSequence(
+        entropy=0 if seed is None else seed, spawn_key=(DUAL_STREAM, which)))
+
+
+def _restarted(stepper, log_levels: np.ndarray, col: int, last: int, inner: int, rng,
+               budget: int):
+    """``inner`` paths per outer path restarted from its log-levels ``log_levels`` (outer,
+    assets) on grid column ``col`` to ``last`` (:meth:`Stepper.restart`), about ``budget``
+    paths at a time: yields ``(o0, o1, x)``, the outer paths ``o0:o1`` and the escrowed
+    log-levels ``x`` of their inner paths (outer path by outer path)."""
+    escrow = stepper.escrow
+    x0 = log_levels if escrow is None else np.log(np.exp(log_levels) - escrow[None, :, col])
+    n_out = x0.shape[0]
+    chunk = max(1, budget // inner)
+    for o0 in range(0, n_out, chunk):
+        o1 = min(o0 + chunk, n_out)
+        yield o0, o1, stepper.restart(np.repeat(x0[o0:o1], inner, axis=0), col, last, rng)
 
 
 def with_bounds(res, *, seed: int | None, steps_per_day: int = 1, source: str | None = None):

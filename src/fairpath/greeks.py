@@ -387,8 +387,7 @@ def greeks(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
                 scen.append((f"S{sa:+d}{sb:+d} {a}/{b}", m2))
     # the exchange rates in play: simulated (a converted payoff, an option on the rate), or
     # only in a foreign asset's quanto drift (their vol and correlation move it)
-    codes = sorted({c for c in (market.foreign(n) for n in names) if c}
-                   | {n for n in names if market.is_fx(n)})
+    codes = market.rates_in_play(names)
     drift_only = [c for c in codes if c not in names]
     dvs = {n: bump.vol_bump_size(market, n, VOL_BUMP) for n in (*names, *drift_only)}
     for n in (*names, *drift_only):

@@ -321,6 +321,12 @@ class Market:
         c = a.currency
         return None if c is None or c == self.currency else c
 
+    def rates_in_play(self, names) -> tuple[str, ...]:
+        """The exchange rates the named underlyings depend on, by code: those among them (an
+        option on a rate, a converted payoff) and those of the foreign assets' quanto drifts."""
+        return tuple(sorted({c for c in (self.foreign(n) for n in names) if c}
+                            | {n for n in names if self.is_fx(n)}))
+
     def carry_df(self, name: str, t):
         """The discount factor whose inverse the asset's level grows at, before its dividend
         yield: its own currency's curve; for an exchange rate the reporting curve over the

@@ -337,8 +337,7 @@ def check_quote(product: Product, market: Market, quote: float, *, vol_band: flo
     prices = [base.price]
     if vol_band > 0:
         # the exchange rates of foreign assets move too (their vol enters the quanto drift)
-        moved = (*names, *sorted({c for c in (market.foreign(n) for n in names)
-                                  if c and c not in names}))
+        moved = (*names, *(c for c in market.rates_in_play(names) if c not in names))
         for shift in (-vol_band, vol_band):
             prices.append(price(product, _with_vols(market, moved, shift=shift),
                                 **settings).price)
@@ -732,12 +731,13 @@ def write_report(path: str | Path, checks: list[QuoteCheck], market: Market, set
                           for t, r in zip(c.times, c.zero_rates, strict=True)))
 
     curve = curve_text(market.discount)
-    issuers = "".join(f"; {html.escape(n)}'s funding spread {html.escape(curve_text(c))}"
-                      for n, c in market.issuers)
-    issuers += "".join(f"; {html.escape(c)} zero rates {html.escape(curve_text(k))}"
-                       for c, k in market.curves)
-    issuers += "".join(f"; 1 {html.escape(x.code)} = {x.spot:g} {html.escape(market.currency)}"
-                       f" (vol {html.escape(_vols_text(x.vol))})" for x in market.fx)
+    # the issuers' spreads, the other currencies' curves and their exchange rates
+    others = "".join(f"; {html.escape(n)}'s funding spread {html.escape(curve_text(c))}"
+                     for n, c in market.issuers)
+    others += "".join(f"; {html.escape(c)} zero rates {html.escape(curve_text(k))}"
+                      for c, k in market.curves)
+    others += "".join(f"; 1 {html.escape(x.code)} = {x.spot:g} {html.escape(market.currency)}"
+                      f" (vol {html.escape(_vols_text(x.vol))})" for x in market.fx)
     run = "".join(f"<tr><td>{html.escape(k)}</td><td>{html.escape(str(v))}</td></tr>"
                   for k, v in {**run_settings, "fairpath": __version__,
                                "numpy": numpy.__version__, "scipy": scipy.__version__,
@@ -759,7 +759,7 @@ max-width:28em;font-size:90%}}
 {_svg_chart(checks)}
 <h2>Market inputs</h2>
 <p>valuation date {market.valuation_date}, currency {html.escape(market.currency)},
-day count {market.day_count}; discount zero rates {html.escape(curve)}{issuers}</p>
+day count {market.day_count}; discount zero rates {html.escape(curve)}{others}</p>
 <table><tr><th>asset</th><th>spot</th><th>vol (tenor in years, Black vol)</th>
 <th>dividend yield</th><th>shock law</th></tr>{assets}</table>
 {_correlation_html(market)}
