@@ -10,7 +10,11 @@ References, named at each check:
   (QuantLib's AnalyticEuropeanEngine on the foreign curve), whatever the exchange rate's vol
   and correlation;
 * an option on the exchange rate: Garman and Kohlhagen (1983) (QuantLib's
-  GarmanKohlagenProcess with its analytic engine).
+  GarmanKohlagenProcess with its analytic engine);
+* under Heston, with no quanto correlation: Heston's (1993) semi-analytic price in the
+  asset's own currency (QuantLib's AnalyticHestonEngine), rediscounted; with one: the change
+  of numeraire written out in the test (a simulation under the asset's own currency's measure,
+  weighted by the density of the reporting currency's, Geman, El Karoui and Rochet 1995).
 """
 
 from __future__ import annotations
@@ -19,6 +23,7 @@ import dataclasses
 import math
 from datetime import date
 
+import numpy as np
 import pytest
 import QuantLib as ql
 
@@ -175,6 +180,139 @@ dividend_yield = 0.04
     t = m.time(EXPIRY)
     ref = own.price * math.exp(-(0.08 - 0.05) * t)
     assert abs(res.price - ref) <= 4 * math.hypot(res.stderr, own.stderr), (res.price, ref)
+
+
+HESTON = MARKET.replace("vol = 0.20\ndividend_yield = 0.04\n", """model = "heston"
+dividend_yield = 0.04
+[assets.SPRUCE.heston]
+v0 = 0.04
+kappa = 1.5
+theta = 0.04
+vol_of_vol = XI
+spot_vol_correlation = -0.7
+""", 1)
+
+
+def heston_market(tmp_path, xi, rho):
+    return market(tmp_path, rho, HESTON.replace("XI", repr(xi)))
+
+
+def test_heston_quanto_with_a_deterministic_variance_is_the_closed_form(tmp_path):
+    # vol of vol 0 and v0 = theta = 0.04: a constant 20% vol, so the quanto drift with the
+    # instantaneous vol is Haug's (2007, 5.16)
+    m = heston_market(tmp_path, 0.0, 0.3)
+    res = fp.price(product_from_dict(call("SPRUCE", 105.0, settlement="quanto",
+                                          quanto_rate=1.5)), m, seed=11)
+    assert any("Heston" in n for n in res.notes)
+    assert not any("Fourier" in n for n in res.notes)  # no control on its own-currency price
+    ref = cf.quanto_price(100, 105, m.time(EXPIRY), 0.08, 0.05, 0.04, 0.2, 0.1, 0.3, "call",
+                          1.5)
+    assert abs(res.price - ref) <= 4 * res.stderr, (res.price, res.stderr, ref)
+
+
+def _ql_heston_usd(strike: float) -> float:
+    """QuantLib's AnalyticHestonEngine on the USD curve (Heston 1993)."""
+    proc = ql.HestonProcess(_flat(0.05), _flat(0.04), ql.QuoteHandle(ql.SimpleQuote(100.0)),
+                            0.04, 1.5, 0.04, 0.8, -0.7)
+    opt = ql.EuropeanOption(ql.PlainVanillaPayoff(ql.Option.Call, strike),
+                            ql.EuropeanExercise(ql.Date(1, 6, 2027)))
+    opt.setPricingEngine(ql.AnalyticHestonEngine(ql.HestonModel(proc)))
+    return opt.NPV()
+
+
+def test_heston_quanto_without_correlation_is_the_own_currency_price_rediscounted(tmp_path):
+    # no quanto correlation: the share and its variance drift as in USD; the quanto call pays
+    # in EUR, so it is the USD price discounted at the EUR rate instead of the USD one
+    m = heston_market(tmp_path, 0.8, 0.0)
+    res = fp.price(product_from_dict(call("SPRUCE", 105.0, settlement="quanto")), m, seed=12)
+    ref = _ql_heston_usd(105.0) * math.exp(-(0.08 - 0.05) * m.time(EXPIRY))
+    assert abs(res.price - ref) <= 4 * res.stderr, (res.price, res.stderr, ref)
+
+
+def _numeraire_change(rho: float, t: float, paths=200_000, steps=250, seed=7):
+    """``(quanto call at rho) - (at 0)`` and its standard error, by the change of numeraire:
+    full-truncation Euler paths of the USD-measure Heston model (v0 0.04, kappa 1.5, theta
+    0.04, vol of vol 0.8, spot-vol correlation -0.7), each weighted by the EUR measure's
+    density. With ``Y = 1/X`` (USD per EUR), ``dQ_EUR/dQ_USD = exp(sigma_X W_Y(T) -
+    sigma_X^2 T / 2)``; ``W_Y = -rho W_S + sqrt(1 - rho^2) W_perp`` and integrating the
+    independent ``W_perp`` out leaves ``exp(-rho sigma_X W_S(T) - rho^2 sigma_X^2 T / 2)``.
+    Nothing of the model's quanto drift is used: the share's and its variance's drifts under
+    EUR come out of the weight."""
+    rng = np.random.default_rng(seed)
+    dt = t / steps
+    x, v, w = np.full(paths, math.log(100.0)), np.full(paths, 0.04), np.zeros(paths)
+    for _ in range(steps):
+        z1, z2 = rng.standard_normal(paths), rng.standard_normal(paths)
+        vp = np.maximum(v, 0.0)
+        sq = np.sqrt(vp * dt)
+        x += (0.05 - 0.04 - 0.5 * vp) * dt + sq * z1
+        v += 1.5 * (0.04 - vp) * dt + 0.8 * sq * (-0.7 * z1 + math.sqrt(1 - 0.49) * z2)
+        w += math.sqrt(dt) * z1
+    pay = math.exp(-0.08 * t) * np.maximum(np.exp(x) - 105.0, 0.0)
+    d = pay * (np.exp(-rho * 0.10 * w - 0.5 * (rho * 0.10) ** 2 * t) - 1.0)
+    return d.mean(), d.std() / math.sqrt(paths)
+
+
+@pytest.mark.parametrize("rho", [0.5, -0.5])
+def test_heston_quanto_drift_is_the_change_of_numeraire(tmp_path, rho):
+    # the quanto correlation's effect on the call, against the reference above: a positive
+    # correlation lowers the share's drift (-rho sigma_X sqrt(v)) and, through the spot-vol
+    # correlation, raises its variance's (+0.7 rho sigma_X vol_of_vol sqrt(v))
+    c = product_from_dict(call("SPRUCE", 105.0, settlement="quanto"))
+    m = heston_market(tmp_path, 0.8, 0.0)
+    base = fp.price(c, m, seed=13, paths=1 << 17)
+    moved = fp.price(c, heston_market(tmp_path, 0.8, rho), seed=13, paths=1 << 17)
+    ref, ref_se = _numeraire_change(rho, m.time(EXPIRY))
+    diff = moved.price - base.price
+    assert np.sign(diff) == -np.sign(rho)
+    assert abs(diff - ref) <= 4 * math.hypot(base.stderr, moved.stderr, ref_se), (diff, ref)
+
+
+LSV = FLAT_SURFACE.replace("dividend_yield = 0.04\n", """model = "lsv"
+dividend_yield = 0.04
+[assets.SPRUCE.heston]
+v0 = 0.04
+kappa = 1.5
+theta = 0.04
+vol_of_vol = 0.8
+spot_vol_correlation = -0.7
+mixing = MIXING
+""", 1)
+
+
+def test_lsv_quanto_without_vol_of_vol_is_the_closed_form(tmp_path):
+    # mixing 0: LSV is local vol, here on a flat 20% surface, so the quanto drift with the
+    # leverage times the variance's root is Haug's (2007, 5.16)
+    m = market(tmp_path, 0.3, LSV.replace("MIXING", "0.0"))
+    res = fp.price(product_from_dict(call("SPRUCE", 105.0, settlement="quanto",
+                                          quanto_rate=1.5)), m, seed=14)
+    assert any("local-stochastic" in n for n in res.notes)
+    ref = cf.quanto_price(100, 105, m.time(EXPIRY), 0.08, 0.05, 0.04, 0.2, 0.1, 0.3, "call",
+                          1.5)
+    assert abs(res.price - ref) <= 4 * res.stderr, (res.price, res.stderr, ref)
+
+
+def test_lsv_quanto_without_correlation_is_the_foreign_price_rediscounted(tmp_path):
+    # mixing 0.7, no quanto correlation: the same leverage (calibrated on the USD surface) and
+    # the same paths as in a market whose reporting currency is USD, discounted at the EUR
+    # rate instead; with a correlation of 0.5 the call is worth less (lower drift)
+    text = LSV.replace("MIXING", "0.7")
+    c = product_from_dict(call("SPRUCE", 100.0, settlement="quanto"))
+    m = market(tmp_path, 0.0, text)
+    res = fp.price(c, m, seed=15)
+    usd = """valuation_date = 2026-12-01
+currency = "USD"
+[discount]
+rate = 0.05
+[assets.SPRUCE]
+""" + text.split("[assets.SPRUCE]\n")[1].split("[correlation]")[0].replace(
+        'currency = "USD"\n', "")
+    own = fp.price(product_from_dict(call("SPRUCE", 100.0)), market(tmp_path, 0.0, usd),
+                   seed=15)
+    ref = own.price * math.exp(-(0.08 - 0.05) * m.time(EXPIRY))
+    assert abs(res.price - ref) <= 4 * math.hypot(res.stderr, own.stderr), (res.price, ref)
+    moved = fp.price(c, market(tmp_path, 0.5, text), seed=15)
+    assert moved.price < res.price - 4 * math.hypot(res.stderr, moved.stderr)
 
 
 def worst_of(assets) -> dict:

@@ -91,12 +91,18 @@ class Model:
     def daily(self) -> bool:
         return False
 
-    def forward_and_scaling(self) -> frozenset[Capability]:
+    def forward_and_scaling(self, *, quanto_forward: bool = True) -> frozenset[Capability]:
         """What a model whose escrowed part moves in proportion to its start declares: the
-        forward, and spot scaling unless cash dividends (which do not scale) are to come."""
-        if self.market.dividend_times(self.name):
-            return frozenset({Capability.FORWARD})
-        return frozenset({Capability.FORWARD, Capability.SPOT_SCALING})
+        forward, and spot scaling unless cash dividends (which do not scale) are to come.
+        ``quanto_forward=False``: a foreign asset's quanto drift moves with the model's own
+        (local or stochastic) vol, so its simulated mean is not the forward (which carries the
+        Black vols' quanto term), and no forward is declared for it."""
+        caps = {Capability.FORWARD}
+        if not quanto_forward and self.market.foreign(self.name) is not None:
+            caps = set()
+        if not self.market.dividend_times(self.name):
+            caps.add(Capability.SPOT_SCALING)
+        return frozenset(caps)
 
     def check_run(self, variance: np.ndarray, paths: int) -> None:
         """Refuse a run of ``paths`` paths whose step variances ``variance`` (this asset's row,

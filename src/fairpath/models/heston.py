@@ -88,8 +88,10 @@ class Heston(Model):
     @property
     def capabilities(self) -> frozenset[Capability]:
         # the variance does not depend on the level, and the martingale correction makes the
-        # simulated forward exact: every path is proportional to the escrowed spot
-        return self.forward_and_scaling()
+        # simulated forward exact: every path is proportional to the escrowed spot. A foreign
+        # asset's quanto drift moves with its instantaneous vol: its mean is not the forward
+        # (which carries the Black vols' quanto term)
+        return self.forward_and_scaling(quanto_forward=False)
 
     def check_run(self, variance: np.ndarray, paths: int) -> None:
         check_lognormal_tail(self.market, self.name, variance, paths)
@@ -103,7 +105,8 @@ class Heston(Model):
 
         market, name = self.market, self.name
         dates = product.observation_dates()
-        if name not in product.underlyings() or not dates or market.dividend_times(name):
+        if name not in product.underlyings() or not dates or market.dividend_times(name) \
+                or market.foreign(name) is not None:  # no Fourier price with the quanto drift
             return []
         last = dates[-1]
         t = market.time(last)
@@ -180,7 +183,9 @@ class StochSteps(ScalesWithSpot, Stepper):
 
     The normals' factors are every asset's spot shock first (in the order of the names, as
     for local vol and Black, so those assets draw the same numbers as in their own models'
-    simulations), then one variance shock per asset with a variance process."""
+    simulations), then one variance shock per asset with a variance process. ``quanto``
+    (assets, steps): the shift of a foreign asset's spot shock under the reporting currency's
+    measure, ``rho(S, X)`` times the exchange rate's vol over the step (0 for the others)."""
 
     #: the normals are only read (the levels go to a new array)
     keeps_normals = True
@@ -193,13 +198,6 @@ class StochSteps(ScalesWithSpot, Stepper):
 
         if isinstance(sub, bool) or not isinstance(sub, int) or sub < 1:
             raise InputError(f"must be a positive integer, got {sub!r}", key="steps_per_day")
-        for m in models:
-            code = m.market.foreign(m.name)
-            if code is not None:
-                raise InputError(f"{m.name} is quoted in {code}: the quanto drift is built for "
-                                 "the black and local-vol models, not yet beside a stochastic "
-                                 "variance; price it under those", source=m.market.source,
-                                 key=f"assets.{m.name}.currency")
         market = models[0].market
         n_a = len(models)
         grid = np.asarray(times, dtype=float)
@@ -218,9 +216,23 @@ class StochSteps(ScalesWithSpot, Stepper):
         ends = np.cumsum([len(p) for p in pieces]) - 1
         self.grid_cols = ends.astype(np.int64)
         n_f = len(fine)
-        self.log_fwd = np.stack([np.log(np.asarray(market.x_forward(m.name, np.concatenate(
-            [[0.0], fine])), dtype=float)) for m in models])
         self.code = np.array([stepping_code(m) for m in models], dtype=np.int64)
+        # a foreign asset's own forward, but for Black's exact steps (whose forward carries
+        # the quanto drift). Under the other models the asset is stepped as in its own
+        # currency with its spot shock shifted by ``-quanto`` (Girsanov: its Brownian motion
+        # under the reporting currency's measure drifts by -rho(S, X) sigma_X), which gives
+        # the quanto drift with the local or instantaneous vol, and under Heston and LSV the
+        # variance's drift -xi sqrt(v) rho(S, v) rho(S, X) sigma_X through its correlated shock
+        self.log_fwd = np.stack([np.log(np.asarray(market.x_forward(m.name, np.concatenate(
+            [[0.0], fine]), quanto=bool(c == BLACK)), dtype=float))
+            for m, c in zip(models, self.code, strict=True)])
+        self.quanto = np.zeros((n_a, n_f))
+        for i, m in enumerate(models):
+            code = market.foreign(m.name)
+            if code is not None and self.code[i] != BLACK:
+                fx = market.asset(code).vol
+                self.quanto[i] = market.quanto_correlation(m.name) * np.sqrt(
+                    integrate_vol_product(fx, fx, starts, fine))
         self.vfac = np.full(n_a, -1, dtype=np.int64)
         self.gbm_sd = np.zeros((n_a, n_f))
         tables = bool(np.any((self.code == LOCAL) | (self.code == LSV)))
@@ -299,13 +311,13 @@ class StochSteps(ScalesWithSpot, Stepper):
     def _escrowed(self, z: np.ndarray, active: np.ndarray | None) -> np.ndarray:
         return sv_paths(z, self.corr, self.log_fwd, self.code, self.vfac, self.gbm_sd,
                         self.table, self.y0, self.dy, self.par, self.coef, self.log_start,
-                        active, self.grid_cols)
+                        active, self.grid_cols, self.quanto)
 
     def asset_inputs(self, a: int) -> tuple:
         table = self.table[a] if self.table.shape[1] else None
         return (self.sim_times, self.grid_cols, self.log_fwd[a], int(self.code[a]),
                 int(self.vfac[a]), self.gbm_sd[a], table, self.y0[a], self.dy[a],
-                self.par[a], self.coef[a], self.corr[a], self.log_start[a],
+                self.par[a], self.coef[a], self.corr[a], self.log_start[a], self.quanto[a],
                 None if self.escrow is None else self.escrow[a])
 
     def simulate_changed(self, z: np.ndarray, base: PathState, keep: np.ndarray) -> PathState:
@@ -341,7 +353,7 @@ def _qe(v, zv, e, c1, c2, theta):
 
 @njit(cache=True, nogil=True)
 def _sv_paths(z, out, col_of, corr, log_fwd, code, vfac, gbm_sd, table, y0, inv_dy, par,
-              coef, log_x0, active):
+              coef, log_x0, active, quanto):
     n, n_f, n_s = z.shape
     n_a = corr.shape[0]
     last = table.shape[2] - 1
@@ -361,12 +373,15 @@ def _sv_paths(z, out, col_of, corr, log_fwd, code, vfac, gbm_sd, table, y0, inv_
                 step = log_fwd[a, k + 1] - log_fwd[a, k]
                 kind = code[a]
                 theta, rho, srho, xi = par[a, 1], par[a, 2], par[a, 3], par[a, 4]
+                q = quanto[a, k]
                 e_k, c1, c2 = coef[a, 0, k], coef[a, 1, k], coef[a, 2, k]
                 k0, k1, k2, k34 = coef[a, 3, k], coef[a, 4, k], coef[a, 5, k], coef[a, 6, k]
                 for p in range(p0, p1):
                     e = 0.0
                     for b in range(a + 1):
                         e += corr[a, b] * z[p, b, k]
+                    if q != 0.0:  # under the reporting currency's measure (the quanto drift)
+                        e -= q
                     if kind == 0:
                         sd = gbm_sd[a, k]
                         x[p, a] += step - 0.5 * sd * sd + sd * e
@@ -417,10 +432,12 @@ def _sv_paths(z, out, col_of, corr, log_fwd, code, vfac, gbm_sd, table, y0, inv_
 def sv_paths(z: np.ndarray, corr: np.ndarray, log_fwd: np.ndarray, code: np.ndarray,
              vfac: np.ndarray, gbm_sd: np.ndarray, table: np.ndarray, y0: np.ndarray,
              dy: np.ndarray, par: np.ndarray, coef: np.ndarray, log_x0: np.ndarray,
-             active: np.ndarray | None = None, cols: np.ndarray | None = None) -> np.ndarray:
+             active: np.ndarray | None = None, cols: np.ndarray | None = None,
+             quanto: np.ndarray | None = None) -> np.ndarray:
     """Log-levels (paths, assets, kept steps) of a simulation of Heston, LSV, local-vol and
     Black assets (see :class:`StochSteps`) from the normals ``z`` (paths, factors, steps),
-    which are only read; kept: the steps ``cols`` (default: every step)."""
+    which are only read; kept: the steps ``cols`` (default: every step); ``quanto``: the
+    quanto drifts' coefficients (default none)."""
     z = np.ascontiguousarray(z, dtype=np.float64)
     n, _, n_s = z.shape
     n_a = corr.shape[0]
@@ -441,5 +458,7 @@ def sv_paths(z: np.ndarray, corr: np.ndarray, log_fwd: np.ndarray, code: np.ndar
               np.ascontiguousarray(1.0 / np.asarray(dy, dtype=np.float64)),
               np.ascontiguousarray(par, dtype=np.float64),
               np.ascontiguousarray(coef, dtype=np.float64),
-              np.ascontiguousarray(log_x0, dtype=np.float64), _active(active, n_a))
+              np.ascontiguousarray(log_x0, dtype=np.float64), _active(active, n_a),
+              np.zeros((n_a, n_s)) if quanto is None
+              else np.ascontiguousarray(quanto, dtype=np.float64))
     return out

@@ -53,10 +53,7 @@ class LocalVol(Model):
         # forward does not depend on the spot, so every level is proportional to it. A foreign
         # asset's quanto drift moves with its local vol: its mean is not the forward (which
         # carries the Black vols' quanto term), so no control may rest on it
-        caps = self.forward_and_scaling()
-        if self.market.foreign(self.name) is not None:
-            caps -= {Capability.FORWARD}
-        return caps
+        return self.forward_and_scaling(quanto_forward=False)
 
     @property
     def daily(self) -> bool:

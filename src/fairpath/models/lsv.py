@@ -92,7 +92,8 @@ class LocalStochasticVol(Model):
     @property
     def capabilities(self) -> frozenset[Capability]:
         # the leverage is a function of moneyness against the forward: paths scale with spot
-        return self.forward_and_scaling()
+        # (a foreign asset's quanto drift moves with its vol: no forward, as under Heston)
+        return self.forward_and_scaling(quanto_forward=False)
 
     @property
     def daily(self) -> bool:
