@@ -204,7 +204,7 @@ def price_trade(trade_id: str, product, market: Market, quantity: float, setting
             g = greeks(product, market, stream=stream,
                        **{k: v for k, v in settings.items()
                           if k in ("paths", "sampler", "seed", "replicates",
-                                   "steps_per_day")})
+                                   "steps_per_day", "daily_closes")})
             row["greeks"] = json.dumps({k: _scaled(v, quantity)
                                         for k, v in g.to_dict()["greeks"].items()},
                                        separators=(",", ":"))
@@ -225,7 +225,7 @@ def price_book(trades_csv: str | Path, market: Market, out: str | Path, *,
                executor: str = "dask", greeks: bool = False, paths: int = DEFAULT_PATHS,
                sampler: str = "sobol", seed: int | None = None,
                replicates: int = DEFAULT_REPLICATES, progress: bool = False,
-               steps_per_day: int = 1,
+               steps_per_day: int = 1, daily_closes: bool = False,
                on_row: Callable[[dict], None] | None = None) -> BookSummary:
     """Price every trade of a trades CSV into ``out`` (see the module notes).
 
@@ -266,7 +266,7 @@ def price_book(trades_csv: str | Path, market: Market, out: str | Path, *,
     columns = COLUMNS + extra
     ids = {t.trade_id for t in trades}
     settings = dict(paths=paths, sampler=sampler, seed=seed, replicates=replicates,
-                    steps_per_day=steps_per_day)
+                    steps_per_day=steps_per_day, daily_closes=daily_closes)
     stamp = _fingerprint(market, settings, greeks)
     meta = out.with_name(out.name + ".run.json")
     done = {r["trade_id"]: r for r in _read_done(out, extra) if r["trade_id"] in ids}

@@ -79,6 +79,9 @@ def _add_law_options(p: argparse.ArgumentParser, compare: bool = False) -> None:
                         "local volatility (to see how much of a price is the smile)")
     p.add_argument("--steps-per-day", type=_positive_int, default=1,
                    help="under local volatility, log-Euler steps per weekday (default 1)")
+    p.add_argument("--daily-closes", action="store_true",
+                   help="simulate every weekday close of a daily-watched barrier, even under "
+                        "Black where it is read from Brownian bridges between monthly dates")
     p.add_argument("--model", choices=known_models(), default=None,
                    help="replace every asset's model in the market file (a what-if)")
 
@@ -301,7 +304,8 @@ def _price(args) -> int:
                          control=not args.no_control, target_stderr=args.target_stderr,
                          max_paths=args.max_paths, replicates=args.replicates,
                          source=args.product, progress=not args.json and sys.stderr.isatty(),
-                         steps_per_day=args.steps_per_day, richardson=args.richardson,
+                         steps_per_day=args.steps_per_day,
+                         daily_closes=args.daily_closes, richardson=args.richardson,
                          dual=args.dual)
     return _emit(res, args.json)
 
@@ -328,7 +332,8 @@ def _check(args) -> int:
     checks = check_quotes(args.quotes, market, vol_band=args.vol_band, paths=args.paths,
                           sampler=args.sampler, seed=args.seed, compare_law=other,
                           progress=not args.json and sys.stderr.isatty(),
-                          steps_per_day=args.steps_per_day, models=models or None)
+                          steps_per_day=args.steps_per_day,
+                          daily_closes=args.daily_closes, models=models or None)
     if args.report:
         write_report(args.report, checks, market,
                      {"quotes": args.quotes, "market": args.market, "paths": args.paths,
@@ -385,7 +390,8 @@ def _greeks(args) -> int:
     product = load_product(args.product)
     res = greeks(product, market, paths=args.paths, sampler=args.sampler, seed=args.seed,
                  method=args.method, replicates=args.replicates, source=args.product,
-                 steps_per_day=args.steps_per_day, buckets=args.buckets,
+                 steps_per_day=args.steps_per_day,
+                 daily_closes=args.daily_closes, buckets=args.buckets,
                  progress=not args.json and sys.stderr.isatty())
     return _emit(res, args.json)
 
@@ -402,6 +408,7 @@ def _scenarios(args) -> int:
     res = scenarios(product, market, spot_shifts=args.spot, vol_shifts=args.vol,
                     paths=args.paths, sampler=args.sampler, seed=args.seed,
                     replicates=args.replicates, steps_per_day=args.steps_per_day,
+                    daily_closes=args.daily_closes,
                     source=args.product, progress=not args.json and sys.stderr.isatty())
     if args.plot:
         write_plot(res, args.plot)
@@ -421,7 +428,8 @@ def _solve(args) -> int:
     product = load_product(args.product)
     res = solve(product, market, args.key, args.target, paths=args.paths, sampler=args.sampler,
                 seed=args.seed, replicates=args.replicates, source=args.product,
-                steps_per_day=args.steps_per_day)
+                steps_per_day=args.steps_per_day,
+                daily_closes=args.daily_closes)
     return _emit(res, args.json)
 
 
@@ -432,7 +440,8 @@ def _book(args) -> int:
     summary = price_book(args.trades, market, args.out, workers=args.workers,
                          scheduler=args.scheduler, greeks=args.greeks, paths=args.paths,
                          sampler=args.sampler, seed=args.seed, replicates=args.replicates,
-                         progress=sys.stderr.isatty(), steps_per_day=args.steps_per_day)
+                         progress=sys.stderr.isatty(), steps_per_day=args.steps_per_day,
+                         daily_closes=args.daily_closes)
     print(summary)
     print(f"results in {args.out}")
     print(f"\n{estimate.CAUTION}")

@@ -113,6 +113,9 @@ class Settings:
     chunk_paths: int | None = None
     stream: tuple[int, ...] = ()
     progress: bool = False
+    #: simulate every weekday close of a daily watch, even where the models' bridges would
+    #: read it from the observation dates alone (:meth:`Product.for_models`)
+    daily_closes: bool = False
 
     def make_sampler(self) -> Sampler:
         return make_sampler(self.sampler, seed=self.seed, antithetic=self.antithetic,
@@ -265,7 +268,8 @@ class Simulation:
             future.update(d for d in p.observation_dates() if d > val)
             daily = p.daily_until()
             if daily is not None:
-                future.update(weekdays_between(val, daily))
+                stride = p.daily_stride()
+                future.update(weekdays_between(val, daily)[stride - 1::stride])
         if future and self.models.daily:
             # a law of daily shocks, a local vol that moves with the level: every weekday
             future.update(weekdays_between(val, max(future)))
@@ -891,10 +895,12 @@ def run(products: list[Product], scenarios: list[Market], settings: Settings, *,
         raise InputError(f"must be an integer at least the path count, got {max_paths!r}",
                          key="max_paths")
     market = scenarios[0]
-    products = fit_products(products, market, settings, source)
     names = products[0].underlyings()
     models = ModelSet.resolve(market, names, source=source)
     caps = models.capabilities
+    if not settings.daily_closes:
+        products = [p.for_models(caps, models.daily) for p in products]
+    products = fit_products(products, market, settings, source)
     controls, control_notes = [], []
     for p in products:
         keep, dropped = usable_controls(p.controls(market) if settings.control else [], caps)

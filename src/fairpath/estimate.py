@@ -27,6 +27,7 @@ from fairpath.engine import (  # noqa: F401  (re-exported: the engine's names as
 )
 from fairpath.errors import FairpathError
 from fairpath.market import Market
+from fairpath.products.autocall import BRIDGE_BOUND
 from fairpath.products.base import Product
 from fairpath.products.currency import settle
 from fairpath.results import CAUTION, Estimate, PriceResult  # noqa: F401
@@ -48,6 +49,7 @@ def price(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
           chunk_paths: int | None = None, source: str | None = None,
           progress: bool = False, threads: int | None = None,
           stream: tuple[int, ...] = (), steps_per_day: int = 1,
+          daily_closes: bool = False,
           richardson: bool = False, dual: bool = False) -> PriceResult:
     """Monte Carlo price of ``product`` on ``market``.
 
@@ -99,7 +101,8 @@ def price(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
                       antithetic=antithetic, control=control, target_stderr=target_stderr,
                       max_paths=max_paths, replicates=replicates, chunk_paths=chunk_paths,
                       source=source, progress=progress, threads=threads, stream=stream,
-                      steps_per_day=steps_per_day, richardson=richardson, dual=dual)[0]
+                      steps_per_day=steps_per_day, daily_closes=daily_closes,
+                      richardson=richardson, dual=dual)[0]
 
 
 def price_many(products: list[Product], market: Market, *, paths: int = DEFAULT_PATHS,
@@ -109,7 +112,7 @@ def price_many(products: list[Product], market: Market, *, paths: int = DEFAULT_
                chunk_paths: int | None = None, source: str | None = None,
                control_set: tuple[str, ...] | None = None, progress: bool = False,
                threads: int | None = None, stream: tuple[int, ...] = (),
-               steps_per_day: int = 1, richardson: bool = False,
+               steps_per_day: int = 1, daily_closes: bool = False, richardson: bool = False,
                dual: bool = False) -> list[PriceResult]:
     """Price several products on the same assets with the same random numbers.
 
@@ -121,7 +124,8 @@ def price_many(products: list[Product], market: Market, *, paths: int = DEFAULT_
     t_start = time.perf_counter()
     settings = Settings(paths=paths, sampler=sampler, seed=seed, antithetic=antithetic,
                         replicates=replicates, control=control, threads=threads,
-                        steps_per_day=steps_per_day, chunk_paths=chunk_paths, stream=stream,
+                        steps_per_day=steps_per_day, daily_closes=daily_closes,
+                        chunk_paths=chunk_paths, stream=stream,
                         progress=progress)
     if dual:
         from fairpath.duality import check_dual
@@ -137,6 +141,11 @@ def price_many(products: list[Product], market: Market, *, paths: int = DEFAULT_
         out = [with_bounds(res, seed=seed, steps_per_day=steps_per_day, source=source)
                for res in out]
     return out
+
+
+#: A bridged daily watch is kept when the range its assets' combination leaves on the price
+#: (``BRIDGE_BOUND``) is at most this share of the error bar; else every close is simulated
+BRIDGE_SHARE = 0.5
 
 
 def price_run(products: list[Product], market: Market, settings: Settings, *,
@@ -156,9 +165,19 @@ def price_run(products: list[Product], market: Market, settings: Settings, *,
     funded = [j for j, p in enumerate(products)
               if p.funding_curve(market, source or p.source) is not None]
     twins = [dataclasses.replace(products[j], funding=False) for j in funded]
-    out = _price_run(products + twins, market, settings, source=source,
-                     control_set=control_set, target_stderr=target_stderr,
-                     max_paths=max_paths, t_start=t_start, richardson_steps=richardson_steps)
+    kw = dict(source=source, control_set=control_set, target_stderr=target_stderr,
+              max_paths=max_paths, t_start=t_start, richardson_steps=richardson_steps)
+    out = _price_run(products + twins, market, settings, **kw)
+    wide = [r for r in out if r.diagnostics.get(BRIDGE_BOUND, 0.0) > BRIDGE_SHARE * r.stderr]
+    if wide:  # a bridged daily watch whose assets' combination could move it too far
+        r = max(wide, key=lambda r: r.diagnostics[BRIDGE_BOUND] / max(r.stderr, 1e-300))
+        why = (f"every weekday close simulated: read from monthly dates and bridges, the "
+               f"knock-in's combination of the assets could move {r.product} by up to "
+               f"{r.diagnostics[BRIDGE_BOUND]:.3g}, more than {BRIDGE_SHARE:g} of its error "
+               f"bar ({r.stderr:.3g})")
+        out = _price_run(products + twins, market, dataclasses.replace(
+            settings, daily_closes=True), **kw)
+        out = [dataclasses.replace(x, notes=(*x.notes, why)) for x in out]
     res, rest = out[:len(products)], out[len(products):]
     for j, twin in zip(funded, rest, strict=True):
         res[j] = with_funding(res[j], twin, market)

@@ -325,6 +325,7 @@ def greeks(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
            antithetic: bool = False, replicates: int = DEFAULT_REPLICATES,
            cross_gamma: bool = True, source: str | None = None,
            stream: tuple[int, ...] = (), steps_per_day: int = 1,
+           daily_closes: bool = False,
            threads: int | None = None, correlation: bool = True, dividends: bool = True,
            buckets: str | None = None, progress: bool = False) -> GreeksResult:
     """Delta, gamma (and cross-gammas), vega per asset, rho and theta, each with its error.
@@ -354,7 +355,8 @@ def greeks(product: Product, market: Market, *, paths: int = DEFAULT_PATHS,
     source = source or product.source
     settings = Settings(paths=paths, sampler=sampler, seed=seed, antithetic=antithetic,
                         replicates=replicates, control=False, threads=threads,
-                        steps_per_day=steps_per_day, stream=stream, progress=progress)
+                        steps_per_day=steps_per_day, daily_closes=daily_closes, stream=stream,
+                        progress=progress)
     settings.make_sampler()  # refuse bad sampler settings before anything else
     product.check(market, source)
     product = settle([product.struck(market)], market, source)[0]

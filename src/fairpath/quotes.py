@@ -301,7 +301,7 @@ def check_quote(product: Product, market: Market, quote: float, *, vol_band: flo
                 tolerance: float = 0.0, paths: int = DEFAULT_PATHS, sampler: str = "sobol",
                 seed: int | None = None, implied: bool = True, label: str = "",
                 source: str | None = None, compare_law: Law | None = None,
-                steps_per_day: int = 1, models=None) -> QuoteCheck:
+                steps_per_day: int = 1, daily_closes: bool = False, models=None) -> QuoteCheck:
     """Check one quote (see the module notes).
 
     ``compare_law``: also price the product with this shock law for every asset it uses (same
@@ -328,7 +328,7 @@ def check_quote(product: Product, market: Market, quote: float, *, vol_band: flo
     if not (isinstance(vol_band, int | float) and vol_band >= 0 and math.isfinite(vol_band)):
         raise InputError(f"must be a non-negative number, got {vol_band!r}", key="--vol-band")
     settings = dict(paths=paths, sampler=sampler, seed=seed, source=source,
-                    steps_per_day=steps_per_day)
+                    steps_per_day=steps_per_day, daily_closes=daily_closes)
     names = product.underlyings()
     kinds = model_list(models)
     alts = {k: under_model(market, names, k, where=label or source) for k in kinds

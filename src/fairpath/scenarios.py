@@ -322,7 +322,8 @@ def _spot_moved(market: Market, names: tuple[str, ...], s: float) -> Market:
 def scenarios(product: Product, market: Market, *, spot_shifts=DEFAULT_SPOT,
               vol_shifts=DEFAULT_VOL, paths: int = DEFAULT_PATHS, sampler: str = "sobol",
               seed: int | None = None, replicates: int = DEFAULT_REPLICATES,
-              steps_per_day: int = 1, threads: int | None = None, source: str | None = None,
+              steps_per_day: int = 1, daily_closes: bool = False, threads: int | None = None,
+              source: str | None = None,
               progress: bool = False) -> ScenarioGrid:
     """The value of ``product`` over a grid of spot and vol moves, every cell on the same
     random numbers.
@@ -356,6 +357,7 @@ def scenarios(product: Product, market: Market, *, spot_shifts=DEFAULT_SPOT,
     source = source or product.source
     settings = Settings(paths=paths, sampler=sampler, seed=seed, replicates=replicates,
                         control=False, threads=threads, steps_per_day=steps_per_day,
+                        daily_closes=daily_closes,
                         progress=progress)
     settings.make_sampler()  # refuse bad sampler settings before anything else
     product.check(market, source)

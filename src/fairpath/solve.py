@@ -94,7 +94,8 @@ def numeric_keys(product: Product) -> list[str]:
 def solve(product: Product, market: Market, key: str, target: float, *,
           paths: int = DEFAULT_PATHS, sampler: str = "sobol", seed: int | None = None,
           antithetic: bool = False, control: bool = True, replicates: int = 16,
-          source: str | None = None, steps_per_day: int = 1) -> SolveResult:
+          source: str | None = None, steps_per_day: int = 1,
+          daily_closes: bool = False) -> SolveResult:
     """The value of the numeric product key ``key`` at which the price equals ``target``.
 
     Examples
@@ -117,7 +118,7 @@ def solve(product: Product, market: Market, key: str, target: float, *,
         raise InputError(f"must be a finite number, got {target!r}", key="--target")
     settings = dict(paths=paths, sampler=sampler, seed=seed, antithetic=antithetic,
                     control=control, replicates=replicates, source=source,
-                    steps_per_day=steps_per_day)
+                    steps_per_day=steps_per_day, daily_closes=daily_closes)
 
     def with_value(x: float) -> Product:
         return dataclasses.replace(product, **{key: x})

@@ -293,6 +293,18 @@ class Product:
         """Legal but doubtful terms, warned about once when the product is loaded."""
         return ()
 
+    def daily_stride(self) -> int:
+        """Of the weekdays up to :meth:`daily_until`, the engine simulates every this many
+        (1: every weekday; more where the product reads the closes in between from a bridge)."""
+        return 1
+
+    def for_models(self, capabilities: frozenset[Capability], daily_grid: bool) -> Product:
+        """The product as the engine prices it under models with these ``capabilities``
+        (``daily_grid``: they step every weekday anyway): a cheaper but equivalent reading of
+        its terms where the models allow one (a daily watch through exact bridges between the
+        observation dates); itself by default."""
+        return self
+
     def model_notes(self, capabilities: frozenset[Capability]) -> tuple[str, ...]:
         """Remarks on how the product is priced under models with these capabilities (e.g. an
         approximate Brownian bridge)."""
