@@ -476,3 +476,53 @@ def bridge_paths(zt: np.ndarray, order: np.ndarray, left: np.ndarray, right: np.
     out = np.empty((cols // factors, factors, n))
     _bridge_paths(np.ascontiguousarray(zt), order, left, right, wl, wr, sd, sqrt_dt, out)
     return out
+
+
+@njit(cache=True, nogil=True)
+def _bridge_survival(x, x0, shifted, var, use, survive, low, high):
+    n, n_a, n_s = x.shape
+    for i in range(n):
+        s, lo_, hi_ = 1.0, 1.0, 1.0
+        for k in range(n_s):
+            if not use[k]:
+                continue
+            keep, total, top = 1.0, 0.0, 0.0
+            for a in range(n_a):
+                v = var[a, k]
+                prev = x0[i, a] if k == 0 else x[i, a, k - 1]
+                da = prev - shifted[a, k]
+                db = x[i, a, k] - shifted[a, k]
+                if v <= 0.0 or da <= 0.0 or db <= 0.0:
+                    continue
+                e = 2.0 * da * db / v
+                if e > 40.0:  # exp(-40) < half an ulp of 1: 1 - p is exactly 1
+                    continue
+                p = np.exp(-e)
+                keep *= 1.0 - p
+                total += p
+                if p > top:
+                    top = p
+            s *= keep
+            hi_ *= 1.0 - top
+            lo_ *= max(1.0 - total, 0.0)
+        survive[i] = s
+        low[i] = lo_
+        high[i] = hi_
+
+
+def bridge_survival(x: np.ndarray, x0: np.ndarray, shifted: np.ndarray, var: np.ndarray,
+                    use: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Per path, the product over steps ``k`` (where ``use[k]``) and assets ``a`` of ``1 - p``,
+    ``p = exp(-2 (prev - s) (x - s) / v)`` the Brownian-bridge crossing probability of the
+    level ``s = shifted[a, k]`` between the log-levels ``prev`` (the step's start: ``x0`` for
+    the first) and ``x[:, a, k]`` of variance ``v = var[a, k]`` (0 where an end is at or below
+    ``s``); and the per-step bounds ``prod (1 - max_a p)`` (high) and ``prod max(1 - sum_a p,
+    0)`` (low). Returns ``(survival, low, high)``."""
+    n = x.shape[0]
+    out = np.empty(n), np.empty(n), np.empty(n)
+    _bridge_survival(np.ascontiguousarray(x, dtype=np.float64),
+                     np.ascontiguousarray(x0, dtype=np.float64),
+                     np.ascontiguousarray(shifted, dtype=np.float64),
+                     np.ascontiguousarray(var, dtype=np.float64),
+                     np.ascontiguousarray(use, dtype=np.bool_), *out)
+    return out

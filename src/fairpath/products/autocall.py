@@ -68,6 +68,7 @@ import numpy as np
 from fairpath.dates import schedule_dates, weekdays_between
 from fairpath.errors import InputError
 from fairpath.inputs import MAX_AMOUNT, show
+from fairpath.kernels import bridge_survival
 from fairpath.laws import BRIDGE_UNDER_LAW
 from fairpath.market import Market
 from fairpath.products.base import (
@@ -775,36 +776,28 @@ def closes_survival(ps: PathSet, lo: int, hi: int, init: np.ndarray, h: float,
     breach at all is at least ``1 - sum_i p_i`` and at most ``1 - max_i p_i``; the steps are
     independent given the simulated dates, so the bounds multiply)."""
     n, n_a = ps.n, len(init)
-    log_init = np.log(init)[None, :, None]
-    x = ps.grid_log_levels[:, :, lo:hi] - log_init
+    log_init = np.log(init)
+    x = ps.grid_log_levels[:, :, lo:hi] - log_init[None, :, None]
     if lo == 0:
-        x0 = np.broadcast_to((np.log(ps.spots) - log_init[0, :, 0])[None, :, None], (n, n_a, 1))
+        x0 = np.broadcast_to(np.log(ps.spots) - log_init, (n, n_a))
     else:
-        x0 = ps.grid_log_levels[:, :, lo - 1:lo] - log_init
-    prev = np.concatenate([x0, x[:, :, :-1]], axis=2)
-    survive = np.ones(n)
-    low, high = np.ones(n), np.ones(n)
+        x0 = ps.grid_log_levels[:, :, lo - 1] - log_init[None, :]
+    var = ps.variance[:, lo:hi]
+    shifted = np.full(var.shape, h)
+    use = np.zeros(hi - lo, dtype=bool)
     val = ps.market.valuation_date
     for j, g in enumerate(range(lo, hi)):
         start = ps.grid_dates[g - 1] if g > 0 else val
         closes = weekdays_between(start, ps.grid_dates[g])
         if len(closes) <= 1:
             continue
-        v = ps.variance[:, g]
+        use[j] = True
         # the closes are 1 or 3 calendar days apart: the shift is the gaps' sqrt weighted by
         # their length (each gap misses crossings in proportion to its time and its sd)
         gaps = np.diff([start.toordinal(), *(d.toordinal() for d in closes)]).astype(float)
-        shifted = h - BGK_SHIFT * np.sqrt(v / gaps.sum()) * (gaps ** 1.5).sum() / gaps.sum()
-        a = prev[:, :, j] - shifted[None, :]
-        b = x[:, :, j] - shifted[None, :]
-        with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
-            p = np.where((a > 0) & (b > 0) & (v[None, :] > 0),
-                         np.exp(-2.0 * np.maximum(a, 0.0) * np.maximum(b, 0.0)
-                                / np.where(v > 0, v, 1.0)[None, :]), 0.0)
-        survive *= np.prod(1.0 - p, axis=1)
-        if bounds:
-            high *= 1.0 - p.max(axis=1)
-            low *= np.maximum(1.0 - p.sum(axis=1), 0.0)
+        shifted[:, j] = h - BGK_SHIFT * np.sqrt(var[:, j] / gaps.sum()) * \
+            (gaps ** 1.5).sum() / gaps.sum()
+    survive, low, high = bridge_survival(x, x0, shifted, var, use)
     return (survive, low, high) if bounds else survive
 
 
