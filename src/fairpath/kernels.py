@@ -479,19 +479,24 @@ def bridge_paths(zt: np.ndarray, order: np.ndarray, left: np.ndarray, right: np.
 
 
 @njit(cache=True, nogil=True)
-def _bridge_survival(x, x0, shifted, var, use, survive, low, high):
-    n, n_a, n_s = x.shape
+def _bridge_survival(g, lo, log_init, x0, shifted, var, use, survive, low, high, lowest):
+    n, n_a, _ = g.shape
+    n_s = shifted.shape[1]
     for i in range(n):
         s, lo_, hi_ = 1.0, 1.0, 1.0
+        worst = np.inf
         for k in range(n_s):
-            if not use[k]:
-                continue
             keep, total, top = 1.0, 0.0, 0.0
             for a in range(n_a):
+                xk = g[i, a, lo + k] - log_init[a]
+                if xk < worst:
+                    worst = xk
+                if not use[k]:
+                    continue
                 v = var[a, k]
-                prev = x0[i, a] if k == 0 else x[i, a, k - 1]
+                prev = x0[i, a] if k == 0 else g[i, a, lo + k - 1] - log_init[a]
                 da = prev - shifted[a, k]
-                db = x[i, a, k] - shifted[a, k]
+                db = xk - shifted[a, k]
                 if v <= 0.0 or da <= 0.0 or db <= 0.0:
                     continue
                 e = 2.0 * da * db / v
@@ -502,25 +507,31 @@ def _bridge_survival(x, x0, shifted, var, use, survive, low, high):
                 total += p
                 if p > top:
                     top = p
-            s *= keep
-            hi_ *= 1.0 - top
-            lo_ *= max(1.0 - total, 0.0)
+            if use[k]:
+                s *= keep
+                hi_ *= 1.0 - top
+                lo_ *= max(1.0 - total, 0.0)
         survive[i] = s
         low[i] = lo_
         high[i] = hi_
+        lowest[i] = worst
 
 
-def bridge_survival(x: np.ndarray, x0: np.ndarray, shifted: np.ndarray, var: np.ndarray,
-                    use: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Per path, the product over steps ``k`` (where ``use[k]``) and assets ``a`` of ``1 - p``,
-    ``p = exp(-2 (prev - s) (x - s) / v)`` the Brownian-bridge crossing probability of the
-    level ``s = shifted[a, k]`` between the log-levels ``prev`` (the step's start: ``x0`` for
-    the first) and ``x[:, a, k]`` of variance ``v = var[a, k]`` (0 where an end is at or below
-    ``s``); and the per-step bounds ``prod (1 - max_a p)`` (high) and ``prod max(1 - sum_a p,
-    0)`` (low). Returns ``(survival, low, high)``."""
-    n = x.shape[0]
-    out = np.empty(n), np.empty(n), np.empty(n)
-    _bridge_survival(np.ascontiguousarray(x, dtype=np.float64),
+def bridge_survival(g: np.ndarray, lo: int, log_init: np.ndarray, x0: np.ndarray,
+                    shifted: np.ndarray, var: np.ndarray, use: np.ndarray
+                    ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Per path, over the grid columns ``lo .. lo + steps - 1`` of the log-levels ``g`` (paths,
+    assets, grid dates) less ``log_init``: the product over steps ``k`` (where ``use[k]``) and
+    assets ``a`` of ``1 - p``, ``p = exp(-2 (prev - s) (x - s) / v)`` the Brownian-bridge
+    crossing probability of the level ``s = shifted[a, k]`` between the step's start ``prev``
+    (``x0`` for the first) and its end ``x`` of variance ``v = var[a, k]`` (0 where an end is at
+    or below ``s``); the per-step bounds ``prod (1 - max_a p)`` (high) and ``prod max(1 -
+    sum_a p, 0)`` (low); and the lowest ``x`` over the assets and columns. Returns
+    ``(survival, low, high, lowest)``."""
+    n = g.shape[0]
+    out = np.empty(n), np.empty(n), np.empty(n), np.empty(n)
+    _bridge_survival(np.ascontiguousarray(g, dtype=np.float64), np.int64(lo),
+                     np.ascontiguousarray(log_init, dtype=np.float64),
                      np.ascontiguousarray(x0, dtype=np.float64),
                      np.ascontiguousarray(shifted, dtype=np.float64),
                      np.ascontiguousarray(var, dtype=np.float64),

@@ -662,17 +662,20 @@ class Autocallable(Product):
                                self.maturity)
         if pb <= 0:
             return np.zeros(n)
+        if self.daily_bridge:
+            survive, low, high, lowest = closes_survival(ps, lo, hi, init, math.log(pb))
+            grid_hit = lowest <= math.log(pb)
+            if state is not None:
+                grid_hit |= state.breached
+            if bounds is not None:  # the knock-in's range whatever the assets' joint law
+                bounds.append(np.where(grid_hit, 0.0, low - high))
+            return np.where(grid_hit, 1.0, 1.0 - survive)
         # in logs: the lowest close of each asset, then the worst performance among them
         log_init = np.log(init)
         lowest = ps.grid_log_levels[:, :, lo:hi].min(axis=2) - log_init[None, :]
         grid_hit = lowest.min(axis=1) <= math.log(pb)
         if state is not None:
             grid_hit |= state.breached
-        if self.daily_bridge:
-            survive, low, high = closes_survival(ps, lo, hi, init, math.log(pb), bounds=True)
-            if bounds is not None:  # the knock-in's range whatever the assets' joint law
-                bounds.append(np.where(grid_hit, 0.0, low - high))
-            return np.where(grid_hit, 1.0, 1.0 - survive)
         if self.protection_monitoring == "daily":
             return grid_hit.astype(float)
         # continuous: Brownian-bridge crossing probability per asset and step (see module notes)
@@ -733,7 +736,7 @@ class _BreachWatch:
             np.minimum(self.low, seg, out=self.low)
             if self.survive is not None:
                 self.survive *= closes_survival(self.ps, lo, hi, np.exp(self.log_init[0]),
-                                                self.level)
+                                                self.level)[0]
         self.since = d
         hit = (self.low <= self.level).astype(float)
         return hit if self.survive is None else np.where(hit > 0, 1.0, 1.0 - self.survive)
@@ -763,32 +766,31 @@ DAILY_BRIDGE_NOTE = (
     "every close is simulated when that exceeds half the error bar (--daily-closes always)")
 
 
-def closes_survival(ps: PathSet, lo: int, hi: int, init: np.ndarray, h: float,
-                    bounds: bool = False):
+def closes_survival(ps: PathSet, lo: int, hi: int, init: np.ndarray, h: float
+                    ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """Per path, the probability that no weekday close strictly between the grid dates of
     columns ``lo - 1 .. hi - 1`` (the valuation date before column 0) has an asset's log
     performance at or below ``h``, given the simulated levels: per asset and grid step, the
     bridge crossing probability ``exp(-2 a b / v)`` of the barrier lowered by ``BGK_SHIFT``
     times the standard deviation over the gap between closes (the gaps of 1 and 3 calendar
     days weighted by their length), 0 for a step of one close; the product over assets and
-    steps (the module notes). With ``bounds``: ``(survival, low, high)``, ``low`` and ``high``
-    bounding the survival whatever the assets' joint law between the dates (per step, no
-    breach at all is at least ``1 - sum_i p_i`` and at most ``1 - max_i p_i``; the steps are
-    independent given the simulated dates, so the bounds multiply)."""
+    steps (the module notes). Returns ``(survival, low, high, lowest)``: ``low`` and ``high``
+    bound the survival whatever the assets' joint law between the dates (per step, no breach
+    at all is at least ``1 - sum_i p_i`` and at most ``1 - max_i p_i``; the steps are
+    independent given the simulated dates, so the bounds multiply); ``lowest`` is the worst
+    log performance on the grid dates themselves."""
     n, n_a = ps.n, len(init)
     log_init = np.log(init)
-    x = ps.grid_log_levels[:, :, lo:hi] - log_init[None, :, None]
-    if lo == 0:
-        x0 = np.broadcast_to(np.log(ps.spots) - log_init, (n, n_a))
-    else:
-        x0 = ps.grid_log_levels[:, :, lo - 1] - log_init[None, :]
+    g = ps.grid_log_levels
+    x0 = np.broadcast_to(np.log(ps.spots) - log_init, (n, n_a)) if lo == 0 else \
+        g[:, :, lo - 1] - log_init[None, :]
     var = ps.variance[:, lo:hi]
     shifted = np.full(var.shape, h)
     use = np.zeros(hi - lo, dtype=bool)
     val = ps.market.valuation_date
-    for j, g in enumerate(range(lo, hi)):
-        start = ps.grid_dates[g - 1] if g > 0 else val
-        closes = weekdays_between(start, ps.grid_dates[g])
+    for j, col in enumerate(range(lo, hi)):
+        start = ps.grid_dates[col - 1] if col > 0 else val
+        closes = weekdays_between(start, ps.grid_dates[col])
         if len(closes) <= 1:
             continue
         use[j] = True
@@ -797,8 +799,7 @@ def closes_survival(ps: PathSet, lo: int, hi: int, init: np.ndarray, h: float,
         gaps = np.diff([start.toordinal(), *(d.toordinal() for d in closes)]).astype(float)
         shifted[:, j] = h - BGK_SHIFT * np.sqrt(var[:, j] / gaps.sum()) * \
             (gaps ** 1.5).sum() / gaps.sum()
-    survive, low, high = bridge_survival(x, x0, shifted, var, use)
-    return (survive, low, high) if bounds else survive
+    return bridge_survival(g, lo, log_init, x0, shifted, var, use)
 
 
 register_shortcut(Autocallable.kind, Shortcut.EXACT_BRIDGE, {Capability.EXACT_BRIDGE})
