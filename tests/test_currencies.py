@@ -182,15 +182,16 @@ dividend_yield = 0.04
     assert abs(res.price - ref) <= 4 * math.hypot(res.stderr, own.stderr), (res.price, ref)
 
 
-HESTON = MARKET.replace("vol = 0.20\ndividend_yield = 0.04\n", """model = "heston"
-dividend_yield = 0.04
-[assets.SPRUCE.heston]
+#: SPRUCE's variance process (vol of vol ``{xi}``) for the Heston and LSV checks
+VARIANCE = """[assets.SPRUCE.heston]
 v0 = 0.04
 kappa = 1.5
 theta = 0.04
-vol_of_vol = XI
+vol_of_vol = {xi}
 spot_vol_correlation = -0.7
-""", 1)
+"""
+HESTON = MARKET.replace("vol = 0.20\ndividend_yield = 0.04\n", 'model = "heston"\n'
+                        "dividend_yield = 0.04\n" + VARIANCE.format(xi="XI"), 1)
 
 
 def heston_market(tmp_path, xi, rho):
@@ -268,16 +269,8 @@ def test_heston_quanto_drift_is_the_change_of_numeraire(tmp_path, rho):
     assert abs(diff - ref) <= 4 * math.hypot(base.stderr, moved.stderr, ref_se), (diff, ref)
 
 
-LSV = FLAT_SURFACE.replace("dividend_yield = 0.04\n", """model = "lsv"
-dividend_yield = 0.04
-[assets.SPRUCE.heston]
-v0 = 0.04
-kappa = 1.5
-theta = 0.04
-vol_of_vol = 0.8
-spot_vol_correlation = -0.7
-mixing = MIXING
-""", 1)
+LSV = FLAT_SURFACE.replace("dividend_yield = 0.04\n", 'model = "lsv"\ndividend_yield = 0.04\n'
+                           + VARIANCE.format(xi=0.8) + "mixing = MIXING\n", 1)
 
 
 def test_lsv_quanto_without_vol_of_vol_is_the_closed_form(tmp_path):
