@@ -117,3 +117,21 @@ def test_daily_closes_flag(capsys):
     code, out, _ = run(["price", NOTE, "--market", DEMO, "--paths", "4096",
                         "--daily-closes"], capsys)
     assert code == 0 and "Brownian-bridge" not in out
+
+
+def test_duality_simulates_every_close(monkeypatch):
+    # the bounds restart from each outer path's closes and breach state: with --dual the price
+    # (the issuer's upper bound) is computed on every close too, not through the bridge
+    import fairpath.duality as duality
+
+    seen = []
+
+    def bounds(res, **_):
+        seen.append(res.context[0])
+        return res
+
+    monkeypatch.setattr(duality, "with_bounds", bounds)
+    callable_note = load_product(ROOT / "payoffs" / "autocall_issuer_callable.toml")
+    res = fp.price(callable_note, fp.load_market(DEMO), paths=4096, seed=1, dual=True)
+    assert seen and not seen[0].daily_bridge
+    assert not any("Brownian-bridge" in n for n in res.notes)

@@ -122,9 +122,11 @@ def price_many(products: list[Product], market: Market, *, paths: int = DEFAULT_
     prices carry far less noise than independent runs.
     """
     t_start = time.perf_counter()
+    # duality restarts from each outer path's closes and breach state: every close simulated,
+    # for the price (its lower or upper bound) as for the bounds
     settings = Settings(paths=paths, sampler=sampler, seed=seed, antithetic=antithetic,
                         replicates=replicates, control=control, threads=threads,
-                        steps_per_day=steps_per_day, daily_closes=daily_closes,
+                        steps_per_day=steps_per_day, daily_closes=daily_closes or dual,
                         chunk_paths=chunk_paths, stream=stream,
                         progress=progress)
     if dual:
